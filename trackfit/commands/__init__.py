@@ -1,0 +1,1 @@
+"""Subcommands of the ``trackfit`` command line, one module each (see :mod:`trackfit.cli`)."""

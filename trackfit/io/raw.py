@@ -1,0 +1,550 @@
+"""Raw event files, format version 1 (specification: ``docs/raw-format.md``).
+
+:class:`RawEventWriter` appends :class:`~trackfit.events.EventBatch` objects to a new file, written under a
+temporary name and renamed when closed, so an interrupted run never leaves a file that looks complete.
+:func:`open_raw` returns a :class:`RawEventReader` that streams batches with memory bounded by the batch size.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import queue
+import threading
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from .. import __version__
+from ..events import Event, EventBatch, find_bad_events
+from ..hexgrid import HexGrid
+from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+
+__all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION"]
+
+FORMAT_NAME = "raw-events"
+FORMAT_VERSION = 1
+
+#: dataset name -> (dtype, trailing shape) of the ``/events`` group
+EVENT_DATASETS = {
+    "roi": (np.dtype(np.int32), (4,)),
+    "start": (np.dtype(np.int64), ()),
+    "signal": (np.dtype(np.int16), ()),
+    "time_s": (np.dtype(np.float64), ()),
+    "trigger_id": (np.dtype(np.int64), ()),
+}
+GEOMETRY_ATTRIBUTES = ("pitch_mm", "n_columns", "n_rows", "shifted_rows")
+DEFAULT_BATCH_SIZE = 65_536
+
+
+class RawFormatError(ValueError):
+    """A raw event file that does not follow the format; names the file, the dataset and the first bad event."""
+
+    def __init__(self, path, message, *, dataset=None, event=None):
+        self.path = str(path)
+        self.dataset = dataset
+        self.event = event
+        where = [f"file '{self.path}'"]
+        if dataset is not None:
+            where.append(f"dataset '{dataset}'")
+        if event is not None:
+            where.append(f"event {event}")
+        super().__init__(f"{', '.join(where)}: {message}")
+
+
+def _now_utc() -> str:
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _attr_value(value):
+    """Convert a run-info value to something HDF5 can store as an attribute."""
+    if isinstance(value, str | bytes | bool | int | float | np.generic):
+        return value
+    if isinstance(value, list | tuple | np.ndarray):
+        arr = np.asarray(value)
+        if arr.dtype.kind in "biuf" or arr.dtype.kind == "U":
+            return arr.astype(str) if arr.dtype.kind == "U" else arr
+    raise TypeError(
+        f"run information values must be str, numbers or 1-D arrays of them (got {type(value).__name__}); "
+        "store structured information as TOML or JSON text"
+    )
+
+
+def _decode(value):
+    if isinstance(value, bytes):
+        return value.decode()
+    if isinstance(value, np.ndarray) and value.dtype.kind in "SO":
+        return [v.decode() if isinstance(v, bytes) else v for v in value.tolist()]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+class RawEventWriter:
+    """Write a raw event file (format version 1) batch by batch.
+
+    Parameters
+    ----------
+    path : str or Path
+        Final file name. Data go to ``<path>.partial`` and are renamed to ``path`` by :meth:`close`.
+    grid : HexGrid
+        The chip geometry; every appended batch must use it.
+    compression : str
+        ``"lzf"`` (default, see ``docs/raw-format.md`` for the measurement behind it), ``"gzip"``, ``"none"``,
+        or, when the optional ``hdf5plugin`` package is installed, ``"blosc-lz4"`` or ``"zstd"``.
+    run_info : dict, optional
+        Attributes of the ``/run`` group (source, gas, pressure, voltages, free text, ...).
+    created_by : str, optional
+        Defaults to ``"trackfit <version>"``.
+    chunk_events, chunk_pixels : int
+        Chunk lengths of the per-event and the signal datasets.
+    overwrite : bool
+        Replace an existing file (default False: refuse).
+
+    Examples
+    --------
+    >>> with RawEventWriter("run.h5", HexGrid()) as writer:   # doctest: +SKIP
+    ...     writer.append(batch)
+    """
+
+    def __init__(self, path, grid: HexGrid, *, compression: str = DEFAULT_COMPRESSION, run_info=None,
+                 created_by=None, chunk_events: int = 16_384, chunk_pixels: int = 262_144, overwrite=False):
+        self.path = Path(path)
+        if self.path.exists() and not overwrite:
+            raise FileExistsError(f"'{self.path}' exists; pass overwrite=True to replace it")
+        if not isinstance(grid, HexGrid):
+            raise TypeError(f"'grid' must be a HexGrid (got {type(grid).__name__})")
+        self.grid = grid
+        self.compression = compression
+        self._filters = dataset_filter_options(compression)
+        self._partial = self.path.with_name(self.path.name + ".partial")
+        self._file = h5py.File(self._partial, "w")
+        self._n_events = 0
+        self._n_signal = 0
+        self._truth_keys = None
+        f = self._file
+        f.attrs["trackfit_format"] = FORMAT_NAME
+        f.attrs["format_version"] = FORMAT_VERSION
+        f.attrs["created_by"] = created_by or f"trackfit {__version__}"
+        f.attrs["created_utc"] = _now_utc()
+        geometry = f.create_group("geometry")
+        for key, value in grid.to_dict().items():
+            geometry.attrs[key] = value
+        run = f.create_group("run")
+        for key, value in (run_info or {}).items():
+            run.attrs[key] = _attr_value(value)
+        events = f.create_group("events")
+        self._chunk_events = int(chunk_events)
+        for name, (dtype, tail) in EVENT_DATASETS.items():
+            chunk = chunk_pixels if name == "signal" else chunk_events
+            events.create_dataset(name, shape=(0, *tail), maxshape=(None, *tail), dtype=dtype,
+                                  chunks=(chunk, *tail), **self._filters)
+        events["start"].resize((1,))
+        events["start"][0] = 0
+
+    # ------------------------------------------------------------------
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
+        return False
+
+    def __len__(self):
+        return self._n_events
+
+    def _append(self, dataset, values):
+        n = dataset.shape[0]
+        dataset.resize((n + len(values), *dataset.shape[1:]))
+        dataset[n:] = values
+
+    def append(self, batch: EventBatch) -> None:
+        """Append the events of a batch (its truth columns go to ``/truth``)."""
+        if self._file is None:
+            raise ValueError(f"writer for '{self.path}' is closed")
+        if batch.grid != self.grid:
+            raise ValueError(f"batch geometry {batch.grid} differs from the file's {self.grid}")
+        keys = sorted(batch.truth)
+        if self._truth_keys is None and len(batch):
+            self._truth_keys = keys
+            if keys:
+                truth = self._file.create_group("truth")
+                for key in keys:
+                    values = np.asarray(batch.truth[key])
+                    truth.create_dataset(key, shape=(0,), maxshape=(None,), dtype=values.dtype,
+                                         chunks=(self._chunk_events,), **self._filters)
+        elif len(batch) and keys != self._truth_keys:
+            raise ValueError(f"truth columns {keys} differ from those of earlier batches {self._truth_keys}")
+        if not len(batch):
+            return
+        batch = batch.compact()
+        events = self._file["events"]
+        self._append(events["roi"], batch.roi)
+        self._append(events["start"], batch.start[1:] + self._n_signal)
+        self._append(events["signal"], batch.signal)
+        self._append(events["time_s"], batch.time_s)
+        self._append(events["trigger_id"], batch.trigger_id)
+        for key in keys:
+            self._append(self._file["truth"][key], batch.truth[key])
+        self._n_events += len(batch)
+        self._n_signal += len(batch.signal)
+
+    def set_run_info(self, **values) -> None:
+        """Add or replace attributes of ``/run`` (e.g. counters known only at the end)."""
+        for key, value in values.items():
+            self._file["run"].attrs[key] = _attr_value(value)
+
+    def close(self) -> Path:
+        """Finish the file and give it its final name; returns the path."""
+        if self._file is None:
+            return self.path
+        self._file.close()
+        self._file = None
+        os.replace(self._partial, self.path)
+        return self.path
+
+    def abort(self) -> None:
+        """Close and delete the partial file."""
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+        self._partial.unlink(missing_ok=True)
+
+
+def write_raw(path, batch: EventBatch, **options) -> Path:
+    """Write one batch to a new raw event file (see :class:`RawEventWriter` for the options)."""
+    with RawEventWriter(path, batch.grid, **options) as writer:
+        writer.append(batch)
+    return Path(path)
+
+
+class RawEventReader:
+    """Streaming reader of a raw event file; use :func:`open_raw`.
+
+    Attributes
+    ----------
+    path : Path
+    grid : HexGrid
+    run_info : dict
+        Attributes of ``/run``.
+    header : dict
+        Root attributes (format, version, creator, creation time).
+    truth_names : list of str
+        Datasets of ``/truth`` (empty for measured data).
+    bad_events : list of (int, str)
+        With ``strict=False``: malformed events met so far (index, reason), in file order; they are delivered as
+        empty placeholder events with ``batch.bad`` set, so downstream tables keep one row per input event.
+    """
+
+    def __init__(self, path, *, strict: bool = True):
+        self.path = Path(path)
+        self.strict = strict
+        self.bad_events: list[tuple[int, str]] = []
+        self._reported: set[int] = set()
+        if not self.path.exists():
+            raise FileNotFoundError(f"raw event file '{self.path}' does not exist")
+        try:
+            self._file = h5py.File(self.path, "r")
+        except OSError as err:
+            raise RawFormatError(self.path, f"not a readable HDF5 file ({err})") from None
+        try:
+            self._check_header()
+        except Exception:
+            self._file.close()
+            raise
+
+    # ------------------------------------------------------------------ header checks
+    def _error(self, message, dataset=None, event=None):
+        return RawFormatError(self.path, message, dataset=dataset, event=event)
+
+    def _check_header(self):
+        f = self._file
+        attrs = {k: _decode(v) for k, v in f.attrs.items()}
+        for key in ("trackfit_format", "format_version", "created_by", "created_utc"):
+            if key not in attrs:
+                raise self._error(f"missing root attribute '{key}'", dataset="/")
+        if attrs["trackfit_format"] != FORMAT_NAME:
+            raise self._error(f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
+                              f"(got {attrs['trackfit_format']!r})", dataset="/")
+        if attrs["format_version"] != FORMAT_VERSION:
+            raise self._error(f"unknown format_version {attrs['format_version']!r}; this trackfit reads "
+                              f"version {FORMAT_VERSION}", dataset="/")
+        self.header = attrs
+        if "geometry" not in f:
+            raise self._error("missing group", dataset="/geometry")
+        geometry = {k: _decode(v) for k, v in f["geometry"].attrs.items()}
+        for key in GEOMETRY_ATTRIBUTES:
+            if key not in geometry:
+                raise self._error(f"missing attribute '{key}'", dataset="/geometry")
+        try:
+            self.grid = HexGrid.from_dict(geometry)
+        except (ValueError, TypeError) as err:
+            raise self._error(str(err), dataset="/geometry") from None
+        if "events" not in f:
+            raise self._error("missing group", dataset="/events")
+        events = f["events"]
+        for name, (dtype, tail) in EVENT_DATASETS.items():
+            path = f"/events/{name}"
+            if name not in events:
+                raise self._error("missing dataset", dataset=path)
+            ds = events[name]
+            if not isinstance(ds, h5py.Dataset):
+                raise self._error("expected a dataset, found a group", dataset=path)
+            if ds.dtype != dtype:
+                raise self._error(f"expected dtype {dtype.name}, found {ds.dtype}", dataset=path)
+            if ds.ndim != 1 + len(tail) or ds.shape[1:] != tail:
+                expected = "(N, 4)" if tail else "1-D"
+                raise self._error(f"expected shape {expected}, found {ds.shape}", dataset=path)
+        self._roi = events["roi"]
+        self._start = events["start"]
+        self._signal = events["signal"]
+        self._time = events["time_s"]
+        self._trigger = events["trigger_id"]
+        n = self._roi.shape[0]
+        self._n = n
+        self._n_signal = self._signal.shape[0]
+        if self._start.shape[0] != n + 1:
+            raise self._error(f"expected N + 1 = {n + 1} entries for {n} events (from /events/roi), "
+                              f"found {self._start.shape[0]}", dataset="/events/start",
+                              event=min(n, self._start.shape[0]) - 1 if n else None)
+        first, last = (int(v) for v in self._start[[0, n]]) if n else (int(self._start[0]),) * 2
+        if first != 0:
+            raise self._error(f"start[0] must be 0, found {first}", dataset="/events/start", event=0)
+        self.file_problems: list[str] = []
+        if last != self._n_signal:
+            message = (f"start[N] = {last} differs from the length of /events/signal ({self._n_signal})")
+            if self.strict:
+                raise self._error(message, dataset="/events/start", event=n - 1 if n else None)
+            self.file_problems.append(message)
+        for name, ds in (("time_s", self._time), ("trigger_id", self._trigger)):
+            if ds.shape[0] != n:
+                message = f"expected {n} entries (one per event of /events/roi), found {ds.shape[0]}"
+                if self.strict:
+                    raise self._error(message, dataset=f"/events/{name}", event=min(n, ds.shape[0]))
+                self.file_problems.append(f"/events/{name}: {message}")
+        self.truth_names = sorted(f["truth"].keys()) if "truth" in f else []
+        for name in self.truth_names:
+            ds = f["truth"][name]
+            if ds.ndim != 1 or ds.shape[0] != n:
+                message = f"expected a 1-D dataset of {n} entries, found shape {ds.shape}"
+                raise self._error(message, dataset=f"/truth/{name}")
+        self.run_info = {k: _decode(v) for k, v in f["run"].attrs.items()} if "run" in f else {}
+
+    # ------------------------------------------------------------------ basic access
+    def __len__(self):
+        return self._n
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+    def close(self):
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+
+    @property
+    def n_pixels_total(self) -> int:
+        """Length of the signal array (all ROI pixels of all events)."""
+        return self._n_signal
+
+    @property
+    def compression(self) -> str:
+        """Filter of the signal dataset as HDF5 reports it (``None`` when uncompressed)."""
+        return self._signal.compression or (next(iter(self._signal._filters), None))
+
+    def __repr__(self):
+        return (f"RawEventReader('{self.path}', {self._n} events, {self._n_signal} pixels, "
+                f"grid={self.grid}, truth={self.truth_names or None})")
+
+    # ------------------------------------------------------------------ reading
+    def _read_1d(self, ds, a, b, fill):
+        """ds[a:b], padded with ``fill`` where the dataset is shorter than the event count (non-strict)."""
+        m = ds.shape[0]
+        out = np.full(b - a, fill, dtype=ds.dtype)
+        if a < m:
+            out[: min(b, m) - a] = ds[a:min(b, m)]
+        return out
+
+    def read_batch(self, a: int, b: int, *, with_truth: bool = True) -> EventBatch:
+        """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs)."""
+        if not 0 <= a <= b <= self._n:
+            raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
+        roi = self._roi[a:b]
+        start = self._start[a:b + 1]
+        time_s = self._read_1d(self._time, a, b, np.nan)
+        trigger_id = self._read_1d(self._trigger, a, b, -1)
+        indices, reasons = find_bad_events(roi, start, self._n_signal, self.grid, first_index=a)
+        bad = np.zeros(b - a, dtype=bool)
+        bad[indices - a] = True
+        extra = []
+        for name, ds in (("time_s", self._time), ("trigger_id", self._trigger)):
+            if ds.shape[0] < b:
+                missing = np.arange(max(a, ds.shape[0]), b)
+                extra.extend((int(i), f"'{name}': no entry for this event") for i in missing)
+        if extra:
+            bad[np.array([i for i, _ in extra]) - a] = True
+        problems = sorted(list(zip(indices.tolist(), reasons, strict=True)) + extra)
+        if problems:
+            if self.strict:
+                i, reason = problems[0]
+                dataset, _, message = reason.partition(": ")
+                raise self._error(message + (f" ({len(problems) - 1} more bad events in this batch)"
+                                             if len(problems) > 1 else ""),
+                                  dataset=f"/events/{dataset.strip(chr(39))}", event=i)
+            for i, reason in problems:
+                if i not in self._reported:
+                    self._reported.add(i)
+                    self.bad_events.append((i, reason))
+            # placeholders: empty ROI, no pixels, flagged as bad
+            roi = roi.copy()
+            roi[bad] = 0
+        if not bad.any():
+            s0 = int(start[0])
+            signal = self._signal[s0:int(start[-1])]
+            new_start = start - s0
+        else:
+            # gather only the good events' pixel ranges
+            lo = np.where(bad, 0, start[:-1])
+            n_pix = np.where(bad, 0, start[1:] - start[:-1])
+            if (~bad).any():
+                s0, s1 = int(lo[~bad].min()), int((lo + n_pix)[~bad].max())
+                block = self._signal[s0:s1]
+            else:
+                s0, block = 0, np.zeros(0, np.int16)
+            new_start = np.concatenate([[0], np.cumsum(n_pix)]).astype(np.int64)
+            owner = np.repeat(np.arange(len(n_pix)), n_pix)
+            offsets = np.arange(new_start[-1], dtype=np.int64) - new_start[:-1][owner]
+            signal = block[lo[owner] + offsets - s0]
+        truth = {}
+        if with_truth:
+            truth = {name: self._file["truth"][name][a:b] for name in self.truth_names}
+        return EventBatch(roi=roi, start=new_start, signal=signal, time_s=time_s, trigger_id=trigger_id,
+                          grid=self.grid, index=np.arange(a, b, dtype=np.int64), bad=bad, truth=truth,
+                          validate=False)
+
+    def iter_batches(self, batch_size: int = DEFAULT_BATCH_SIZE, *, start: int = 0, stop: int | None = None,
+                     with_truth: bool = True, prefetch: bool = False):
+        """Yield consecutive :class:`EventBatch` objects of at most ``batch_size`` events.
+
+        Parameters
+        ----------
+        batch_size : int
+        start, stop : int
+            Event range to read (default: the whole file).
+        with_truth : bool
+            Attach the ``/truth`` columns of simulated files.
+        prefetch : bool
+            Read (and decompress) the next batch in a background thread while the caller works on the current
+            one. Worth it when the caller's work releases the GIL (numba ``nogil`` kernels).
+        """
+        if batch_size < 1:
+            raise ValueError(f"'batch_size' must be >= 1 (got {batch_size})")
+        stop = self._n if stop is None else min(int(stop), self._n)
+        bounds = [(a, min(a + batch_size, stop)) for a in range(int(start), stop, batch_size)]
+        if not prefetch:
+            for a, b in bounds:
+                yield self.read_batch(a, b, with_truth=with_truth)
+            return
+        yield from _prefetched(lambda ab: self.read_batch(*ab, with_truth=with_truth), bounds)
+
+    def __iter__(self):
+        """Iterate over single events (slow; for a first look). Use :meth:`iter_batches` for processing."""
+        for batch in self.iter_batches(4096):
+            yield from batch
+
+    def __getitem__(self, i: int) -> Event:
+        """One event with its pixel values, columns, rows, x_mm and y_mm."""
+        i = int(i)
+        if not -self._n <= i < self._n:
+            raise IndexError(f"event {i} out of range: '{self.path}' holds {self._n} events")
+        i %= self._n
+        strict, self.strict = self.strict, True
+        try:
+            return self.read_batch(i, i + 1).event(0)
+        finally:
+            self.strict = strict
+
+    def read_all(self, *, with_truth: bool = True) -> EventBatch:
+        """The whole file as one batch (memory grows with the file: for small files and tests)."""
+        return self.read_batch(0, self._n, with_truth=with_truth)
+
+    def read_truth(self, names=None, start: int = 0, stop: int | None = None) -> dict:
+        """Truth columns of a simulated file as a dict of arrays."""
+        names = self.truth_names if names is None else list(names)
+        missing = sorted(set(names) - set(self.truth_names))
+        if missing:
+            raise KeyError(f"'{self.path}' has no truth columns {missing}; it has {self.truth_names}")
+        return {name: self._file["truth"][name][start:stop] for name in names}
+
+    def validate(self, batch_size: int = DEFAULT_BATCH_SIZE) -> list[tuple[int, str]]:
+        """Scan the whole file; return every malformed event as (index, reason) (never raises for events)."""
+        strict, self.strict = self.strict, False
+        try:
+            for _ in self.iter_batches(batch_size, with_truth=False):
+                pass
+        finally:
+            self.strict = strict
+        return list(self.bad_events)
+
+
+def _prefetched(read, items, depth: int = 2):
+    """Yield ``read(item)`` for each item, reading ahead in one background thread."""
+    results: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+    sentinel = object()
+
+    def worker():
+        try:
+            for item in items:
+                if stop.is_set():
+                    return
+                results.put((read(item), None))
+        except BaseException as err:  # noqa: BLE001 - re-raised in the consumer
+            results.put((None, err))
+            return
+        results.put((sentinel, None))
+
+    thread = threading.Thread(target=worker, name="trackfit-prefetch", daemon=True)
+    thread.start()
+    try:
+        while True:
+            value, err = results.get()
+            if err is not None:
+                raise err
+            if value is sentinel:
+                break
+            yield value
+    finally:
+        stop.set()
+        while thread.is_alive():
+            try:
+                results.get(timeout=0.05)
+            except queue.Empty:
+                pass
+        thread.join()
+
+
+def open_raw(path, *, strict: bool = True) -> RawEventReader:
+    """Open a raw event file for streaming.
+
+    Parameters
+    ----------
+    path : str or Path
+    strict : bool
+        True (default): the first malformed event raises :class:`RawFormatError`. False: malformed events
+        are reported in ``reader.bad_events`` and delivered as flagged empty placeholders.
+
+    Raises
+    ------
+    RawFormatError
+        Missing group, dataset or attribute; unknown format version; wrong dtype or shape; inconsistent lengths.
+    """
+    return RawEventReader(path, strict=strict)
