@@ -1,0 +1,571 @@
+"""Event tables: one row per event, one column array per quantity (format version 1, ``docs/table-format.md``).
+
+What to use when
+----------------
+* :class:`EventTable` - the in-memory table: a read-only mapping ``name -> 1-D array`` of equal length, with
+  ``len(table)`` rows, a :attr:`~EventTable.provenance` dict, :meth:`~EventTable.row` for one event,
+  :meth:`~EventTable.select` for cuts and :meth:`~EventTable.to_pandas`.
+* :func:`write_table` - write a table held in memory.
+* :class:`TableWriter` - append column batches to a new file while streaming (``reconstruct_file`` uses it);
+  data go to ``<path>.partial`` and are renamed when the writer closes, so a crash never leaves a file that
+  looks complete.
+* :func:`read_table` - read all or some columns (and optionally a row range) of a table file.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import html
+import os
+from collections.abc import Mapping
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+
+__all__ = [
+    "EventTable",
+    "TableWriter",
+    "TableFormatError",
+    "write_table",
+    "read_table",
+    "FORMAT_NAME",
+    "FORMAT_VERSION",
+    "COLUMN_DOCS",
+]
+
+FORMAT_NAME = "event-table"
+FORMAT_VERSION = 1
+DEFAULT_CHUNK_ROWS = 65_536
+#: provenance strings longer than this are stored as scalar string datasets instead of attributes
+#: (HDF5 attributes are limited to 64 KiB)
+_LONG_TEXT = 4096
+
+#: Known columns: name -> (dtype, unit, meaning). Written as dataset attributes ``unit`` and ``description``.
+#: Other columns are allowed (any 1-D numeric or boolean array); they get no description unless given one.
+COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
+    "event_index": ("int64", "", "position of the event in its input file (0-based)"),
+    "trigger_id": ("int64", "", "trigger number, copied from the raw file"),
+    "time_s": ("float64", "s", "event time, copied from the raw file"),
+    "status": ("uint16", "", "reconstruction status bit flags, 0 = fully reconstructed "
+                             "(see trackfit.recon.status.Status)"),
+    "n_pixels": ("int32", "", "pixels in the main cluster"),
+    "n_clusters": ("int16", "", "clusters found in the ROI (6-neighbour connected components)"),
+    "pulse_height": ("float32", "ADC", "summed signal of the main cluster"),
+    "energy_kev": ("float32", "keV", "pulse_height / counts_per_kev"),
+    "bary_x_mm": ("float32", "mm", "charge barycentre of the main cluster, x"),
+    "bary_y_mm": ("float32", "mm", "charge barycentre of the main cluster, y"),
+    "conv_x_mm": ("float32", "mm", "reconstructed conversion (impact) point, x"),
+    "conv_y_mm": ("float32", "mm", "reconstructed conversion (impact) point, y"),
+    "axis_rad": ("float32", "rad", "first-pass principal axis, (-pi/2, pi/2]"),
+    "emission_rad": ("float32", "rad", "second-pass emission angle, oriented along the track, (-pi, pi]"),
+    "mom2_long": ("float32", "mm^2", "second moment along the first-pass axis"),
+    "mom2_trans": ("float32", "mm^2", "second moment across the first-pass axis"),
+    "mom3_long": ("float32", "mm^3", "third moment along the first-pass axis"),
+    "peak_adc": ("int16", "ADC", "largest pixel signal in the ROI (unmasked pixels)"),
+    "n_conv_pixels": ("int32", "", "pixels used for the conversion point"),
+}
+
+
+class TableFormatError(ValueError):
+    """An event-table file that does not follow the format; names the file and the dataset."""
+
+    def __init__(self, path, message, *, dataset=None):
+        self.path = str(path)
+        self.dataset = dataset
+        where = f"file '{self.path}'" + (f", dataset '{dataset}'" if dataset is not None else "")
+        super().__init__(f"{where}: {message}")
+
+
+def _now_utc() -> str:
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _decode(value):
+    if isinstance(value, bytes):
+        return value.decode()
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind in "SO":
+            return [v.decode() if isinstance(v, bytes) else v for v in value.tolist()]
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def _as_column(name, values) -> np.ndarray:
+    arr = np.asarray(values)
+    if arr.ndim != 1:
+        raise ValueError(f"column '{name}' must be 1-D (got shape {arr.shape})")
+    if arr.dtype.kind not in "biuf":
+        raise ValueError(f"column '{name}' must be numeric or boolean (got dtype {arr.dtype})")
+    return arr
+
+
+def _python_scalar(value):
+    return value.item() if isinstance(value, np.generic) else value
+
+
+class EventTable(Mapping):
+    """Per-event results: a read-only mapping of column name to 1-D array, all of the same length.
+
+    Parameters
+    ----------
+    columns : mapping of str to array_like
+        Equal-length 1-D numeric (or boolean) arrays; order is kept.
+    provenance : dict, optional
+        Where the table comes from (library version, config TOML, input file identity, ...).
+
+    Notes
+    -----
+    ``len(table)`` is the number of rows (events), not the number of columns; iterate over the table or use
+    :attr:`columns` for the names. The arrays are read-only views; copy one to modify it.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> table = EventTable({"energy_kev": np.array([5.9, 3.1, 6.0]), "status": np.array([0, 2, 0], np.uint16)})
+    >>> len(table), table.columns
+    (3, ['energy_kev', 'status'])
+    >>> good = table.select(table["status"] == 0)
+    >>> good.row(1)
+    {'energy_kev': 6.0, 'status': 0}
+    """
+
+    def __init__(self, columns=None, provenance=None):
+        data = {}
+        n = None
+        for name, values in (columns or {}).items():
+            if not isinstance(name, str) or not name:
+                raise ValueError(f"column names must be non-empty strings (got {name!r})")
+            arr = _as_column(name, values)
+            if n is None:
+                n = len(arr)
+            elif len(arr) != n:
+                first = next(iter(data))
+                raise ValueError(f"column '{name}' has {len(arr)} rows but '{first}' has {n}")
+            view = arr.view()
+            view.flags.writeable = False
+            data[name] = view
+        self._data = data
+        self._n = 0 if n is None else n
+        self._provenance = dict(provenance or {})
+
+    # ------------------------------------------------------------------ mapping protocol
+    def __getitem__(self, name) -> np.ndarray:
+        try:
+            return self._data[name]
+        except KeyError:
+            raise KeyError(f"no column {name!r}; the table has {self.columns}") from None
+
+    def __iter__(self):
+        return iter(self._data)
+
+    def __len__(self) -> int:
+        return self._n
+
+    def __contains__(self, name) -> bool:
+        return name in self._data
+
+    @property
+    def columns(self) -> list[str]:
+        """Column names, in order."""
+        return list(self._data)
+
+    @property
+    def n_rows(self) -> int:
+        return self._n
+
+    @property
+    def provenance(self) -> dict:
+        """A copy of the provenance dictionary (possibly empty)."""
+        return dict(self._provenance)
+
+    # ------------------------------------------------------------------ access
+    def row(self, i: int) -> dict:
+        """The values of event ``i`` as a dict of Python scalars, keyed by column name."""
+        i = int(i)
+        if not -self._n <= i < self._n:
+            raise IndexError(f"row {i} out of range for a table of {self._n} rows")
+        return {name: _python_scalar(arr[i]) for name, arr in self._data.items()}
+
+    def select(self, rows) -> EventTable:
+        """A new table with the rows given by a boolean mask or integer indices (provenance is kept)."""
+        rows = np.asarray(rows)
+        if rows.dtype == bool and len(rows) != self._n:
+            raise ValueError(f"boolean mask has {len(rows)} entries for a table of {self._n} rows")
+        return EventTable({name: arr[rows] for name, arr in self._data.items()}, self._provenance)
+
+    def with_columns(self, **columns) -> EventTable:
+        """A new table with columns added or replaced (same number of rows)."""
+        return EventTable({**self._data, **columns}, self._provenance)
+
+    @classmethod
+    def concatenate(cls, tables) -> EventTable:
+        """Join tables with the same columns, in order; the first table's provenance is kept."""
+        tables = list(tables)
+        if not tables:
+            return cls({})
+        names = tables[0].columns
+        for t in tables[1:]:
+            if t.columns != names:
+                raise ValueError(f"cannot concatenate tables with columns {names} and {t.columns}")
+        return cls({n: np.concatenate([t[n] for t in tables]) for n in names}, tables[0].provenance)
+
+    def to_dict(self) -> dict[str, np.ndarray]:
+        """Column copies in a plain dict."""
+        return {name: arr.copy() for name, arr in self._data.items()}
+
+    def to_pandas(self):
+        """The table as a ``pandas.DataFrame`` (provenance in ``DataFrame.attrs``)."""
+        try:
+            import pandas as pd
+        except ImportError:
+            raise ImportError("EventTable.to_pandas needs pandas: pip install pandas") from None
+        frame = pd.DataFrame({name: arr.copy() for name, arr in self._data.items()})
+        frame.attrs["provenance"] = self.provenance
+        return frame
+
+    # ------------------------------------------------------------------ display
+    def _stats(self):
+        rows = []
+        for name, arr in self._data.items():
+            if len(arr) == 0:
+                rows.append((name, str(arr.dtype), "", "", "", ""))
+                continue
+            if arr.dtype.kind == "f":
+                finite = np.isfinite(arr)
+                n_nan = int(len(arr) - finite.sum())
+                vals = arr[finite]
+            else:
+                n_nan, vals = 0, arr
+            if len(vals):
+                lo, hi, mean = vals.min(), vals.max(), vals.astype(np.float64).mean()
+                rows.append((name, str(arr.dtype), f"{lo:.6g}", f"{hi:.6g}", f"{mean:.6g}", str(n_nan)))
+            else:
+                rows.append((name, str(arr.dtype), "", "", "", str(n_nan)))
+        return rows
+
+    def _status_line(self):
+        if "status" not in self._data or not self._n:
+            return None
+        ok = int(np.count_nonzero(self._data["status"] == 0))
+        return f"status == 0 (fully reconstructed): {ok} of {self._n} ({100.0 * ok / self._n:.1f} %)"
+
+    def summary(self) -> str:
+        """A text table of every column: dtype, min, max, mean and number of NaN."""
+        head = ("column", "dtype", "min", "max", "mean", "NaN")
+        rows = [head, *self._stats()]
+        widths = [max(len(r[k]) for r in rows) for k in range(len(head))]
+        lines = [f"EventTable: {self._n} rows, {len(self._data)} columns"]
+        status = self._status_line()
+        if status:
+            lines.append(status)
+        source = self._provenance.get("input_name")
+        if source:
+            lines.append(f"from: {source}")
+        for r in rows:
+            lines.append("  ".join(v.ljust(w) if k < 2 else v.rjust(w)
+                                   for k, (v, w) in enumerate(zip(r, widths, strict=True))))
+        return "\n".join(lines)
+
+    def __repr__(self):
+        cols = ", ".join(self.columns[:8]) + (", ..." if len(self._data) > 8 else "")
+        return f"EventTable({self._n} rows; columns: {cols})"
+
+    def _repr_html_(self):
+        status = self._status_line()
+        parts = [f"<p><b>EventTable</b>: {self._n} rows, {len(self._data)} columns"
+                 + (f"<br>{html.escape(status)}" if status else "") + "</p>",
+                 "<table><thead><tr>"
+                 + "".join(f"<th>{h}</th>" for h in ("column", "dtype", "min", "max", "mean", "NaN"))
+                 + "</tr></thead><tbody>"]
+        for r in self._stats():
+            parts.append("<tr>" + "".join(f"<td>{html.escape(v)}</td>" for v in r) + "</tr>")
+        parts.append("</tbody></table>")
+        return "".join(parts)
+
+
+# ---------------------------------------------------------------------- writing
+def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
+    for key, value in provenance.items():
+        if key in group.attrs:
+            del group.attrs[key]
+        if key in group:
+            del group[key]
+        if value is None:
+            continue
+        if isinstance(value, Path):
+            value = str(value)
+        if isinstance(value, str) and len(value.encode()) > _LONG_TEXT:
+            group.create_dataset(key, data=value, dtype=h5py.string_dtype())
+        elif isinstance(value, str | bytes | bool | int | float | np.generic):
+            group.attrs[key] = value
+        elif isinstance(value, list | tuple | np.ndarray):
+            arr = np.asarray(value)
+            group.attrs[key] = arr.astype(str) if arr.dtype.kind == "U" else arr
+        else:
+            raise TypeError(f"provenance value {key!r} must be a str, number or list of them "
+                            f"(got {type(value).__name__}); store structures as TOML or JSON text")
+
+
+class TableWriter:
+    """Write an event-table file (format version 1) by appending column batches.
+
+    Parameters
+    ----------
+    path : str or Path
+        Final file name; data go to ``<path>.partial``, renamed to ``path`` by :meth:`close`.
+    provenance : dict, optional
+        Entries of the ``/provenance`` group (more can be added with :meth:`set_provenance` before closing).
+    compression : str
+        A name from :mod:`trackfit.io.compression` (default ``"lzf"``).
+    chunk_rows : int
+        Chunk length of every column dataset.
+    descriptions : dict, optional
+        ``name -> (unit, description)`` for columns not in :data:`COLUMN_DOCS`.
+    overwrite : bool
+        Replace an existing file (default False: refuse).
+
+    Examples
+    --------
+    >>> with TableWriter("events.h5", provenance={"note": "test"}) as writer:    # doctest: +SKIP
+    ...     writer.append({"energy_kev": energies, "status": status})
+    """
+
+    def __init__(self, path, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
+                 chunk_rows: int = DEFAULT_CHUNK_ROWS, descriptions=None, overwrite: bool = False):
+        self.path = Path(path)
+        if self.path.exists() and not overwrite:
+            raise FileExistsError(f"'{self.path}' exists; pass overwrite=True to replace it")
+        if int(chunk_rows) < 1:
+            raise ValueError(f"'chunk_rows' must be >= 1 (got {chunk_rows})")
+        self.compression = compression
+        self._filters = dataset_filter_options(compression)
+        self._chunk_rows = int(chunk_rows)
+        self._descriptions = dict(descriptions or {})
+        self._partial = self.path.with_name(self.path.name + ".partial")
+        self._file = h5py.File(self._partial, "w")
+        self._columns: list[str] | None = None
+        self._dtypes: dict[str, np.dtype] = {}
+        self._n = 0
+        f = self._file
+        f.attrs["trackfit_format"] = FORMAT_NAME
+        f.attrs["format_version"] = FORMAT_VERSION
+        from .. import __version__
+
+        f.attrs["created_by"] = f"trackfit {__version__}"
+        f.attrs["created_utc"] = _now_utc()
+        f.create_group("events", track_order=True)
+        self._provenance = f.create_group("provenance")
+        _write_provenance(self._provenance, {"trackfit_version": __version__, "created_utc": _now_utc(),
+                                             **(provenance or {})})
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
+        return False
+
+    def __len__(self):
+        return self._n
+
+    @property
+    def columns(self) -> list[str]:
+        return list(self._columns or [])
+
+    def _create(self, columns: dict[str, np.ndarray]) -> None:
+        events = self._file["events"]
+        for name, arr in columns.items():
+            ds = events.create_dataset(name, shape=(0,), maxshape=(None,), dtype=arr.dtype,
+                                       chunks=(self._chunk_rows,), **self._filters)
+            unit, text = None, None
+            if name in COLUMN_DOCS:
+                _, unit, text = COLUMN_DOCS[name]
+            if name in self._descriptions:
+                unit, text = self._descriptions[name]
+            if text is not None:
+                ds.attrs["unit"] = unit or ""
+                ds.attrs["description"] = text
+        self._columns = list(columns)
+        self._dtypes = {name: arr.dtype for name, arr in columns.items()}
+        events.attrs["column_order"] = np.array(self._columns, dtype=h5py.string_dtype())
+
+    def append(self, columns: Mapping) -> None:
+        """Append rows given as a mapping of equal-length 1-D arrays (an :class:`EventTable` works).
+
+        The first call fixes the column names and dtypes; later calls must give the same names, and values
+        are cast to the first dtypes (safely: a cast that changes values raises ValueError).
+        """
+        if self._file is None:
+            raise ValueError(f"table writer for '{self.path}' is closed")
+        arrays = {name: _as_column(name, values) for name, values in columns.items()}
+        lengths = {len(a) for a in arrays.values()}
+        if len(lengths) > 1:
+            raise ValueError(f"columns of one append must have equal lengths (got "
+                             f"{ {n: len(a) for n, a in arrays.items()} })")
+        if self._columns is None:
+            self._create(arrays)
+        elif set(arrays) != set(self._columns):
+            raise ValueError(f"columns {sorted(arrays)} differ from those of earlier appends {sorted(self._columns)}")
+        n_new = lengths.pop() if lengths else 0
+        if n_new == 0:
+            return
+        events = self._file["events"]
+        for name in self._columns:
+            values = arrays[name]
+            dtype = self._dtypes[name]
+            if values.dtype != dtype:
+                cast = values.astype(dtype)
+                if not np.array_equal(cast, values, equal_nan=dtype.kind == "f" and values.dtype.kind == "f"):
+                    raise ValueError(f"column '{name}': values do not fit the column dtype {dtype}")
+                values = cast
+            ds = events[name]
+            ds.resize((self._n + n_new,))
+            ds[self._n:] = values
+        self._n += n_new
+
+    def set_provenance(self, **values) -> None:
+        """Add or replace entries of ``/provenance`` (e.g. the input fingerprint, known only at the end)."""
+        if self._file is None:
+            raise ValueError(f"table writer for '{self.path}' is closed")
+        _write_provenance(self._provenance, values)
+
+    def close(self) -> Path:
+        """Finish the file and give it its final name; returns the path."""
+        if self._file is None:
+            return self.path
+        self._file["events"].attrs["n_rows"] = self._n
+        self._file.close()
+        self._file = None
+        os.replace(self._partial, self.path)
+        return self.path
+
+    def abort(self) -> None:
+        """Close and delete the partial file."""
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+        self._partial.unlink(missing_ok=True)
+
+
+def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
+                overwrite: bool = False, chunk_rows: int = DEFAULT_CHUNK_ROWS) -> Path:
+    """Write an :class:`EventTable` (or any mapping of equal-length 1-D arrays) to a new table file.
+
+    Parameters
+    ----------
+    path : str or Path
+    table : EventTable or mapping of str to array_like
+    provenance : dict, optional
+        Merged over ``table.provenance`` when ``table`` is an :class:`EventTable`.
+    compression : str
+    overwrite : bool
+    chunk_rows : int
+
+    Returns
+    -------
+    Path
+    """
+    merged = dict(getattr(table, "provenance", {}) or {})
+    merged.update(provenance or {})
+    with TableWriter(path, provenance=merged, compression=compression, overwrite=overwrite,
+                     chunk_rows=max(1, min(int(chunk_rows), max(len(next(iter(table.values()), [])), 1)))
+                     ) as writer:
+        writer.append(table)
+        if writer._columns is None:  # empty mapping: still a valid (column-less) table
+            writer._file["events"].attrs["column_order"] = np.array([], dtype=h5py.string_dtype())
+    return Path(path)
+
+
+# ---------------------------------------------------------------------- reading
+def _read_provenance(group: h5py.Group) -> dict:
+    out = {k: _decode(v) for k, v in group.attrs.items()}
+    for key, item in group.items():
+        if isinstance(item, h5py.Dataset) and item.shape == ():
+            out[key] = _decode(item[()])
+    return out
+
+
+def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -> EventTable:
+    """Read an event-table file (format version 1).
+
+    Parameters
+    ----------
+    path : str or Path
+    columns : sequence of str, optional
+        Columns to read (default: all, in file order).
+    start, stop : int, optional
+        Row range to read (default: all rows).
+
+    Returns
+    -------
+    EventTable
+        With the file's ``/provenance`` as :attr:`EventTable.provenance`.
+
+    Raises
+    ------
+    FileNotFoundError
+    TableFormatError
+        Not HDF5, wrong format name or version, missing ``/events``, a column that is not a 1-D dataset, or
+        columns of different lengths; the message names the file and the dataset.
+    KeyError
+        An unknown column name; the message lists the available columns.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise FileNotFoundError(f"event table '{path}' does not exist")
+    try:
+        f = h5py.File(path, "r")
+    except OSError as err:
+        raise TableFormatError(path, f"not a readable HDF5 file ({err})") from None
+    with f:
+        attrs = {k: _decode(v) for k, v in f.attrs.items()}
+        for key in ("trackfit_format", "format_version"):
+            if key not in attrs:
+                raise TableFormatError(path, f"missing root attribute '{key}'", dataset="/")
+        if attrs["trackfit_format"] != FORMAT_NAME:
+            raise TableFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
+                                         f"(got {attrs['trackfit_format']!r})", dataset="/")
+        if attrs["format_version"] != FORMAT_VERSION:
+            raise TableFormatError(path, f"unknown format_version {attrs['format_version']!r}; this trackfit "
+                                         f"reads version {FORMAT_VERSION}", dataset="/")
+        if "events" not in f or not isinstance(f["events"], h5py.Group):
+            raise TableFormatError(path, "missing group", dataset="/events")
+        events = f["events"]
+        order = _decode(events.attrs["column_order"]) if "column_order" in events.attrs else list(events)
+        names_in_file = [n for n in order if n in events] + [n for n in events if n not in order]
+        n_rows = None
+        for name in names_in_file:
+            ds = events[name]
+            where = f"/events/{name}"
+            if not isinstance(ds, h5py.Dataset):
+                raise TableFormatError(path, "expected a dataset, found a group", dataset=where)
+            if ds.ndim != 1:
+                raise TableFormatError(path, f"expected a 1-D dataset, found shape {ds.shape}", dataset=where)
+            if ds.dtype.kind not in "biuf":
+                raise TableFormatError(path, f"expected a numeric dtype, found {ds.dtype}", dataset=where)
+            if n_rows is None:
+                n_rows, first = ds.shape[0], name
+            elif ds.shape[0] != n_rows:
+                raise TableFormatError(path, f"has {ds.shape[0]} rows but /events/{first} has {n_rows}",
+                                       dataset=where)
+        if columns is None:
+            wanted = names_in_file
+        else:
+            wanted = [columns] if isinstance(columns, str) else list(columns)
+            unknown = [c for c in wanted if c not in names_in_file]
+            if unknown:
+                raise KeyError(f"'{path}' has no column(s) {unknown}; available: {names_in_file}")
+        n_rows = n_rows or 0
+        a, b, _ = slice(start, stop).indices(n_rows)
+        b = max(a, b)
+        data = {name: events[name][a:b] for name in wanted}
+        provenance = _read_provenance(f["provenance"]) if "provenance" in f else {}
+    return EventTable(data, provenance)

@@ -1,0 +1,98 @@
+"""Status bits of the reconstruction: every fallback of the kernels sets one, so no value is ever unexplained.
+
+``status == 0`` means the event was fully reconstructed with no warning. Bits are of two kinds:
+
+* failures that leave a quantity undefined (``NaN`` in the table): :data:`Status.MALFORMED_INPUT`,
+  :data:`Status.NO_SIGNAL`, :data:`Status.SINGLE_PIXEL`, :data:`Status.ROUND`;
+* warnings and fallbacks where the best available value is written instead: all other bits.
+
+``Status.NO_EMISSION`` is the union of the bits for which ``emission_rad`` is NaN; select events usable for
+polarimetry with ``(table["status"] & Status.NO_EMISSION) == 0`` (and stricter cuts as the analysis needs).
+
+Examples
+--------
+>>> from trackfit.recon.status import Status, explain_status
+>>> Status(Status.TOO_FEW_PIXELS | Status.COLLINEAR)
+<Status.TOO_FEW_PIXELS|COLLINEAR: 36>
+>>> print(explain_status(0))
+0: fully reconstructed
+"""
+
+from __future__ import annotations
+
+import enum
+
+import numpy as np
+
+__all__ = ["Status", "explain_status", "STATUS_DOCS", "status_counts"]
+
+
+class Status(enum.IntFlag):
+    """Bit flags of the ``status`` column (uint16). See :data:`STATUS_DOCS` for the meaning of each bit."""
+
+    MALFORMED_INPUT = 1 << 0
+    NO_SIGNAL = 1 << 1
+    TOO_FEW_PIXELS = 1 << 2
+    SINGLE_PIXEL = 1 << 3
+    ROUND = 1 << 4
+    COLLINEAR = 1 << 5
+    NO_SKEWNESS = 1 << 6
+    NO_CONVERSION_PIXELS = 1 << 7
+    SECOND_PASS_FALLBACK = 1 << 8
+    ROI_BORDER = 1 << 9
+    SATURATED = 1 << 10
+
+
+#: union of the bits for which ``emission_rad`` is NaN (not a bit of its own)
+Status.NO_EMISSION = Status.MALFORMED_INPUT | Status.NO_SIGNAL | Status.SINGLE_PIXEL | Status.ROUND
+
+#: meaning of each bit: what happened and which values the table holds then
+STATUS_DOCS: dict[Status, str] = {
+    Status.MALFORMED_INPUT: "input event malformed (read with strict=False): empty placeholder row; counts 0, "
+                            "pulse_height 0, every position, angle and moment NaN",
+    Status.NO_SIGNAL: "no unmasked pixel above threshold_adc in the ROI (all zero, negative or masked): counts 0, "
+                      "pulse_height 0, every position, angle and moment NaN",
+    Status.TOO_FEW_PIXELS: "main cluster has fewer than min_pixels pixels: everything that is defined is "
+                           "computed, but angles are unreliable",
+    Status.SINGLE_PIXEL: "main cluster is one pixel: barycentre = conversion point = that pixel, moments 0, "
+                         "axis_rad and emission_rad NaN",
+    Status.ROUND: "first-pass second moments isotropic (mom2_long == mom2_trans within 1e-9): no axis, so "
+                  "axis_rad, emission_rad and mom3_long NaN; conversion point = barycentre",
+    Status.COLLINEAR: "all pixels on one line (mom2_trans == 0 within 1e-9 of mom2_long): axis exact, "
+                      "values valid (every 2-pixel track)",
+    Status.NO_SKEWNESS: "third moment zero (|mom3_long| <= 1e-9 mom2_long^1.5): track start unknown, so the "
+                        "conversion point is the barycentre and emission_rad is the first-pass axis, "
+                        "orientation arbitrary",
+    Status.NO_CONVERSION_PIXELS: "no pixel on the start side between r_min and r_max * sqrt(mom2_long) from the "
+                                 "barycentre: conversion point = barycentre; emission_rad = first-pass axis "
+                                 "oriented away from the start side",
+    Status.SECOND_PASS_FALLBACK: "second-pass weighted moments degenerate (isotropic, or all weights underflow): "
+                                 "emission_rad = first-pass axis oriented from the conversion point along the track",
+    Status.ROI_BORDER: "main cluster touches the ROI border: the track may be truncated",
+    Status.SATURATED: "a main-cluster pixel reached saturation_adc: pulse_height underestimates the energy",
+}
+
+
+def explain_status(status: int) -> str:
+    """One line per set bit explaining a status value, e.g. ``explain_status(table["status"][17])``."""
+    status = int(status)
+    if status == 0:
+        return "0: fully reconstructed"
+    lines = [f"{status}:"]
+    rest = status
+    for bit, text in STATUS_DOCS.items():
+        if status & bit:
+            lines.append(f"  {bit.name} (bit {int(bit).bit_length() - 1}): {text}")
+            rest &= ~int(bit)
+    if rest:
+        lines.append(f"  unknown bits {rest:#x} (written by a newer trackfit?)")
+    return "\n".join(lines)
+
+
+def status_counts(status) -> dict[str, int]:
+    """Number of events with each bit set (and ``"ok"`` for status 0), for summaries."""
+    status = np.asarray(status, dtype=np.int64)
+    counts = {"ok": int(np.count_nonzero(status == 0))}
+    for bit in STATUS_DOCS:
+        counts[bit.name] = int(np.count_nonzero(status & int(bit)))
+    return counts
