@@ -144,7 +144,8 @@ def _as_array(name, value, dtype, ndim):
     if arr.ndim != ndim:
         raise EventBatchError(f"'{name}' must be {ndim}-D (got shape {arr.shape})")
     if arr.dtype != dtype:
-        if arr.size and not np.can_cast(arr.dtype, dtype, casting="same_kind"):
+        integral_floats = np.issubdtype(dtype, np.integer) and arr.dtype.kind == "f"
+        if arr.size and not integral_floats and not np.can_cast(arr.dtype, dtype, casting="same_kind"):
             raise EventBatchError(f"'{name}' must be {np.dtype(dtype).name} (got {arr.dtype})")
         if np.issubdtype(dtype, np.integer) and arr.size:
             info = np.iinfo(dtype)
