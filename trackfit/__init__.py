@@ -5,6 +5,9 @@ What to use when
 * :class:`HexGrid` - geometry of the hexagonal pixel chip (pixel centres, nearest pixel, neighbours).
 * :func:`open_raw` / :class:`RawEventWriter` - raw event files (``docs/raw-format.md``).
 * :class:`EventBatch` - events in memory; wrap the arrays of any other acquisition format in it.
+* :func:`reconstruct` / :func:`reconstruct_file` - events to energy, conversion point and emission angle
+  (an :class:`EventTable`, or an event-table file read back with :func:`read_table`); settings in
+  :class:`ReconConfig`.
 * ``trackfit.plotting`` - event displays (imported lazily, needs matplotlib).
 """
 
@@ -18,6 +21,8 @@ except PackageNotFoundError:  # running from a source tree that is not installed
 from .events import Event, EventBatch, EventBatchError
 from .hexgrid import HexGrid
 from .io import RawEventWriter, RawFormatError, open_raw, write_raw
+from .io.table import EventTable, TableFormatError, read_table, write_table
+from .recon import ReconConfig, reconstruct, reconstruct_file
 
 __all__ = [
     "__version__",
@@ -29,4 +34,11 @@ __all__ = [
     "RawFormatError",
     "open_raw",
     "write_raw",
+    "EventTable",
+    "TableFormatError",
+    "read_table",
+    "write_table",
+    "ReconConfig",
+    "reconstruct",
+    "reconstruct_file",
 ]

@@ -1,5 +1,16 @@
-"""Track reconstruction: cleaning and two-stage moment analysis of raw events (``shared`` PHYSICS.md §2)."""
+"""Track reconstruction: cleaning and the two-stage moment analysis of raw events (``PHYSICS.md`` §2).
 
-from .status import Status, explain_status
+What to use when
+----------------
+* :func:`reconstruct` - an :class:`~trackfit.events.EventBatch` in memory to an :class:`~trackfit.io.table.EventTable`.
+* :func:`reconstruct_file` - a raw event file to an event-table file, streaming (also ``trackfit reconstruct``).
+* :class:`ReconConfig` - the settings (threshold, r_min, r_max, weight scale, gain, bad pixels), TOML in and out.
+* :class:`Status` / :func:`explain_status` - the meaning of the ``status`` column.
+"""
 
-__all__ = ["Status", "explain_status"]
+from .config import ReconConfig
+from .pipeline import DEFAULT_BATCH_SIZE, TABLE_COLUMNS, content_fingerprint, reconstruct, reconstruct_file
+from .status import STATUS_DOCS, Status, explain_status, status_counts
+
+__all__ = ["ReconConfig", "reconstruct", "reconstruct_file", "content_fingerprint", "Status", "explain_status",
+           "status_counts", "STATUS_DOCS", "TABLE_COLUMNS", "DEFAULT_BATCH_SIZE"]

@@ -1,0 +1,360 @@
+"""Numba kernels of the reconstruction (private: use :func:`trackfit.reconstruct`).
+
+One kernel, :func:`reconstruct_range`, runs the whole per-event chain of ``PHYSICS.md`` §2 over a range of events
+of a compact batch (``start[0] == 0``) and writes into preallocated output arrays; it never raises for one bad
+event, it sets a status bit (:mod:`trackfit.recon.status`) and writes NaN where a value is undefined. It releases
+the GIL (``nogil``), so threads can run it on disjoint event ranges while another thread reads the next batch.
+
+The plain-numpy twin of every step is in :mod:`trackfit.recon._reference`; tests compare both.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .._jit import jit
+from .status import Status
+
+__all__ = ["reconstruct_range", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE"]
+
+#: column order of the float64 output array of the kernel
+FLOAT_COLUMNS = ("pulse_height", "energy_kev", "bary_x_mm", "bary_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad",
+                 "emission_rad", "mom2_long", "mom2_trans", "mom3_long")
+#: column order of the int64 output array of the kernel
+INT_COLUMNS = ("status", "n_pixels", "n_clusters", "peak_adc", "n_conv_pixels")
+
+#: relative tolerance of the degeneracy tests (round, collinear, no skewness, second pass)
+DEGENERACY_TOLERANCE = 1e-9
+
+# status bits as plain ints for the kernel
+_MALFORMED = int(Status.MALFORMED_INPUT)
+_NO_SIGNAL = int(Status.NO_SIGNAL)
+_FEW = int(Status.TOO_FEW_PIXELS)
+_SINGLE = int(Status.SINGLE_PIXEL)
+_ROUND = int(Status.ROUND)
+_COLLINEAR = int(Status.COLLINEAR)
+_NO_SKEW = int(Status.NO_SKEWNESS)
+_NO_CONV = int(Status.NO_CONVERSION_PIXELS)
+_SECOND = int(Status.SECOND_PASS_FALLBACK)
+_BORDER = int(Status.ROI_BORDER)
+_SATURATED = int(Status.SATURATED)
+
+_F_PH, _F_E, _F_BX, _F_BY, _F_CX, _F_CY, _F_AXIS, _F_EMIS, _F_M2L, _F_M2T, _F_M3 = range(11)
+_I_STATUS, _I_NPIX, _I_NCLUS, _I_PEAK, _I_NCONV = range(5)
+_TOL = DEGENERACY_TOLERANCE
+_PI = math.pi
+
+
+@jit
+def _wrap_pi(angle):
+    """Angle into (-pi, pi]."""
+    if angle > _PI:
+        angle -= 2.0 * _PI
+    elif angle <= -_PI:
+        angle += 2.0 * _PI
+    return angle
+
+
+@jit
+def _principal_axis(mxx, myy, mxy):
+    """(axis in (-pi/2, pi/2], long moment, transverse moment, half difference) of a 2x2 moment matrix."""
+    half_trace = 0.5 * (mxx + myy)
+    half_diff = math.sqrt((0.5 * (mxx - myy)) ** 2 + mxy * mxy)
+    axis = 0.5 * math.atan2(2.0 * mxy, mxx - myy)
+    if axis <= -0.5 * _PI:
+        axis += _PI
+    return axis, half_trace + half_diff, max(half_trace - half_diff, 0.0), half_diff
+
+
+@jit
+def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch_mm, row_pitch_mm, x0_mm, y0_mm,
+                      parity, threshold, min_pixels, r_min, r_max, weight_scale_mm, centre_on_conversion,
+                      counts_per_kev, saturation_adc, out_f, out_i):
+    """Reconstruct events ``lo <= i < hi`` of a compact batch into rows of ``out_f`` / ``out_i``.
+
+    Parameters
+    ----------
+    lo, hi : int
+        Event range.
+    roi : int32 (N, 4); start : int64 (N + 1,) with start[0] == 0; signal : int16 (M,); bad : bool (N,)
+    mask : uint8 (n_rows * n_columns,) or empty
+        Chip-sized bad-pixel map, row by row (1 = ignore the pixel); empty for no mask.
+    mask_columns : int
+        Columns of the chip (row stride of ``mask``).
+    pitch_mm, row_pitch_mm, x0_mm, y0_mm : float
+        Pixel centre of (column, row) = (pitch * (column + 0.5 * shifted) - x0, row_pitch * row - y0).
+    parity : int
+        Row parity that is shifted by half a pitch (1: odd rows, 0: even rows).
+    threshold : int
+        Zero suppression: a pixel is hit when its signal > threshold.
+    min_pixels : int
+    r_min, r_max, weight_scale_mm : float
+    centre_on_conversion : bool
+        Second-pass moments about the conversion point (True) or the weighted barycentre (False).
+    counts_per_kev : float
+    saturation_adc : int
+    out_f : float64 (N, len(FLOAT_COLUMNS)); out_i : int64 (N, len(INT_COLUMNS))
+    """
+    max_area = 1
+    for i in range(lo, hi):
+        area = start[i + 1] - start[i]
+        if area > max_area:
+            max_area = area
+    label = np.full(max_area, -1, np.int32)  # -1: not hit; 0: hit, unlabelled; >0: cluster id
+    hits = np.empty(max_area, np.int32)
+    stack = np.empty(max_area, np.int32)
+    cluster_charge = np.empty(max_area + 1, np.float64)
+    px = np.empty(max_area, np.float64)
+    py = np.empty(max_area, np.float64)
+    pq = np.empty(max_area, np.float64)
+    use_mask = mask.size > 0
+    nan = np.nan
+
+    for i in range(lo, hi):
+        s0 = start[i]
+        c0 = roi[i, 0]
+        r0 = roi[i, 1]
+        nc = roi[i, 2]
+        nr = roi[i, 3]
+        area = start[i + 1] - s0
+        status = 0
+        for k in range(out_f.shape[1]):
+            out_f[i, k] = nan
+        out_f[i, _F_PH] = 0.0
+        out_f[i, _F_E] = 0.0
+        out_i[i, _I_NPIX] = 0
+        out_i[i, _I_NCLUS] = 0
+        out_i[i, _I_PEAK] = 0
+        out_i[i, _I_NCONV] = 0
+        if bad[i]:
+            out_i[i, _I_STATUS] = _MALFORMED
+            continue
+
+        # ---- cleaning: zero suppression (branch-free scan), bad-pixel mask
+        n_hit = 0
+        for k in range(area):
+            hits[n_hit] = k
+            n_hit += signal[s0 + k] > threshold
+        if use_mask and n_hit > 0:
+            kept = 0
+            for j in range(n_hit):
+                k = hits[j]
+                rr = k // nc
+                if mask[(r0 + rr) * mask_columns + c0 + k - rr * nc] == 0:
+                    hits[kept] = k
+                    kept += 1
+            n_hit = kept
+        if n_hit == 0:
+            out_i[i, _I_STATUS] = _NO_SIGNAL
+            continue
+
+        # ---- connected components on the 6-neighbour graph
+        for j in range(n_hit):
+            label[hits[j]] = 0
+        n_clusters = 0
+        best = 0
+        best_charge = -1.0
+        for j in range(n_hit):
+            seed = hits[j]
+            if label[seed] != 0:
+                continue
+            n_clusters += 1
+            label[seed] = n_clusters
+            top = 1
+            stack[0] = seed
+            charge = 0.0
+            while top > 0:
+                top -= 1
+                p = stack[top]
+                charge += signal[s0 + p]
+                rr = p // nc
+                cc = p - rr * nc
+                if cc > 0 and label[p - 1] == 0:
+                    label[p - 1] = n_clusters
+                    stack[top] = p - 1
+                    top += 1
+                if cc < nc - 1 and label[p + 1] == 0:
+                    label[p + 1] = n_clusters
+                    stack[top] = p + 1
+                    top += 1
+                # neighbours in the rows above and below: columns (c, c+1) from a shifted row, (c-1, c) otherwise
+                ca = cc if ((r0 + rr) & 1) == parity else cc - 1
+                for dr in (-1, 1):
+                    r2 = rr + dr
+                    if r2 < 0 or r2 >= nr:
+                        continue
+                    base = r2 * nc
+                    for c2 in (ca, ca + 1):
+                        if c2 >= 0 and c2 < nc:
+                            q = base + c2
+                            if label[q] == 0:
+                                label[q] = n_clusters
+                                stack[top] = q
+                                top += 1
+            cluster_charge[n_clusters] = charge
+            if charge > best_charge:
+                best_charge = charge
+                best = n_clusters
+
+        # ---- main cluster: pixel centres relative to the ROI origin pixel, charges, peak, border
+        n = 0
+        peak = -32768
+        border = False
+        xr = pitch_mm * c0 - x0_mm
+        yr = row_pitch_mm * r0 - y0_mm
+        for j in range(n_hit):
+            k = hits[j]
+            if label[k] == best:
+                rr = k // nc
+                cc = k - rr * nc
+                v = signal[s0 + k]
+                shifted = 0.5 if ((r0 + rr) & 1) == parity else 0.0
+                px[n] = pitch_mm * (cc + shifted)
+                py[n] = row_pitch_mm * rr
+                pq[n] = v
+                if v > peak:
+                    peak = v
+                if rr == 0 or rr == nr - 1 or cc == 0 or cc == nc - 1:
+                    border = True
+                n += 1
+            label[k] = -1
+        out_i[i, _I_NPIX] = n
+        out_i[i, _I_NCLUS] = n_clusters
+        out_i[i, _I_PEAK] = peak
+        if border:
+            status |= _BORDER
+        if peak >= saturation_adc:
+            status |= _SATURATED
+        if n < min_pixels:
+            status |= _FEW
+
+        # ---- first pass: barycentre and moments
+        qsum = 0.0
+        sx = 0.0
+        sy = 0.0
+        for j in range(n):
+            qsum += pq[j]
+            sx += pq[j] * px[j]
+            sy += pq[j] * py[j]
+        bx = sx / qsum
+        by = sy / qsum
+        out_f[i, _F_PH] = qsum
+        out_f[i, _F_E] = qsum / counts_per_kev
+        out_f[i, _F_BX] = bx + xr
+        out_f[i, _F_BY] = by + yr
+        out_f[i, _F_CX] = bx + xr
+        out_f[i, _F_CY] = by + yr
+        if n == 1:
+            out_f[i, _F_M2L] = 0.0
+            out_f[i, _F_M2T] = 0.0
+            out_i[i, _I_STATUS] = status | _SINGLE
+            continue
+        mxx = 0.0
+        myy = 0.0
+        mxy = 0.0
+        for j in range(n):
+            dx = px[j] - bx
+            dy = py[j] - by
+            mxx += pq[j] * dx * dx
+            myy += pq[j] * dy * dy
+            mxy += pq[j] * dx * dy
+        mxx /= qsum
+        myy /= qsum
+        mxy /= qsum
+        axis, m2l, m2t, half_diff = _principal_axis(mxx, myy, mxy)
+        out_f[i, _F_M2L] = m2l
+        out_f[i, _F_M2T] = m2t
+        if half_diff <= _TOL * 0.5 * (mxx + myy):
+            out_i[i, _I_STATUS] = status | _ROUND
+            continue
+        if m2t <= _TOL * m2l:
+            status |= _COLLINEAR
+        ca = math.cos(axis)
+        sa = math.sin(axis)
+        m3 = 0.0
+        for j in range(n):
+            u = (px[j] - bx) * ca + (py[j] - by) * sa
+            m3 += pq[j] * u * u * u
+        m3 /= qsum
+        out_f[i, _F_AXIS] = axis
+        out_f[i, _F_M3] = m3
+        if abs(m3) <= _TOL * m2l ** 1.5:
+            out_f[i, _F_EMIS] = axis
+            out_i[i, _I_STATUS] = status | _NO_SKEW
+            continue
+        side = 1.0 if m3 > 0.0 else -1.0
+
+        # ---- conversion point: start side, r_min..r_max * sqrt(mom2_long) from the barycentre
+        rlo2 = r_min * r_min * m2l
+        rhi2 = r_max * r_max * m2l
+        cq = 0.0
+        cx = 0.0
+        cy = 0.0
+        n_conv = 0
+        for j in range(n):
+            dx = px[j] - bx
+            dy = py[j] - by
+            d2 = dx * dx + dy * dy
+            if (dx * ca + dy * sa) * side > 0.0 and d2 >= rlo2 and d2 <= rhi2:
+                cq += pq[j]
+                cx += pq[j] * px[j]
+                cy += pq[j] * py[j]
+                n_conv += 1
+        out_i[i, _I_NCONV] = n_conv
+        if n_conv == 0:
+            out_f[i, _F_EMIS] = _wrap_pi(axis + (_PI if side > 0.0 else 0.0))
+            out_i[i, _I_STATUS] = status | _NO_CONV
+            continue
+        cx /= cq
+        cy /= cq
+        out_f[i, _F_CX] = cx + xr
+        out_f[i, _F_CY] = cy + yr
+
+        # ---- second pass: weights q exp(-D / w0) from the conversion point
+        wsum = 0.0
+        wx = 0.0
+        wy = 0.0
+        for j in range(n):
+            dx = px[j] - cx
+            dy = py[j] - cy
+            w = pq[j] * math.exp(-math.sqrt(dx * dx + dy * dy) / weight_scale_mm)
+            px[j] = dx  # keep offsets from the conversion point, and the weight in pq
+            py[j] = dy
+            pq[j] = w
+            wsum += w
+            wx += w * dx
+            wy += w * dy
+        ox = bx - cx  # direction of the track seen from the conversion point
+        oy = by - cy
+        emission = axis
+        fallback = True
+        if wsum > 0.0 and math.isfinite(wsum):
+            ux = 0.0
+            uy = 0.0
+            if not centre_on_conversion:
+                ux = wx / wsum
+                uy = wy / wsum
+            sxx = 0.0
+            syy = 0.0
+            sxy = 0.0
+            for j in range(n):
+                dx = px[j] - ux
+                dy = py[j] - uy
+                sxx += pq[j] * dx * dx
+                syy += pq[j] * dy * dy
+                sxy += pq[j] * dx * dy
+            sxx /= wsum
+            syy /= wsum
+            sxy /= wsum
+            phi, _, _, hd = _principal_axis(sxx, syy, sxy)
+            if hd > _TOL * 0.5 * (sxx + syy):
+                emission = phi
+                fallback = False
+        if math.cos(emission) * ox + math.sin(emission) * oy < 0.0:
+            emission += _PI
+        out_f[i, _F_EMIS] = _wrap_pi(emission)
+        if fallback:
+            status |= _SECOND
+        out_i[i, _I_STATUS] = status

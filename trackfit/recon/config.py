@@ -1,0 +1,215 @@
+"""Settings of the reconstruction: :class:`ReconConfig`, a frozen dataclass read from and written to TOML.
+
+Change a setting with :func:`dataclasses.replace` (handy when tuning cuts in a notebook)::
+
+    from dataclasses import replace
+    from trackfit import ReconConfig
+
+    config = replace(ReconConfig(), r_min=1.2, weight_scale_mm=0.04)
+    config.write_toml("recon.toml")           # trackfit reconstruct run.h5 -o run_events.h5 --config recon.toml
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, fields
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["ReconConfig", "SECOND_PASS_CENTRES"]
+
+SECOND_PASS_CENTRES = ("conversion_point", "weighted_barycentre")
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(value, tuple | list):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} to TOML")
+
+
+@dataclass(frozen=True, kw_only=True)
+class ReconConfig:
+    """Parameters of cleaning and the two-stage moment analysis (``PHYSICS.md`` §2).
+
+    Parameters
+    ----------
+    threshold_adc : float
+        Zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts, >= 0). Default 20:
+        about 4 times a pixel noise of 5 ADC counts, within the common-practice range of 3 to 5 sigma; set it from
+        the pedestal RMS of your chip.
+    min_pixels : int
+        Main clusters with fewer pixels get the ``TOO_FEW_PIXELS`` status bit (values are still computed).
+        Default 6 (common practice: below that the moments of a hexagonal cluster reflect the pixel shape).
+    r_min, r_max : float
+        Conversion-point selection: start-side pixels at distances between ``r_min`` and ``r_max`` times
+        sqrt(mom2_long) from the barycentre. Defaults 1.5 and 3.5 (from memory of the published method; tune them
+        with the simulator, maximising the quality factor mu * sqrt(efficiency)).
+    weight_scale_mm : float
+        Second-pass weights exp(-distance / weight_scale_mm) from the conversion point. Default 0.05 mm (from
+        memory of the published method; about one pixel pitch).
+    second_pass_centre : {"conversion_point", "weighted_barycentre"}
+        Point about which the weighted second moments are taken. Default ``"conversion_point"``.
+    counts_per_kev : float
+        Gain: ``energy_kev = pulse_height / counts_per_kev``. Default 100 ADC counts per keV, a placeholder to be
+        replaced by a calibration (e.g. from an Fe-55 line).
+    saturation_adc : int
+        Pixels at or above this signal set the ``SATURATED`` bit. Default 32767, the largest int16 value; lower it
+        to your chip's ADC range minus the pedestal.
+    bad_pixels : tuple of (column, row)
+        Pixels to ignore (hot or dead). The constructor also accepts a chip-sized boolean array indexed
+        ``[row, column]`` (True = bad); it is stored as the list of its pixels, sorted.
+
+    Examples
+    --------
+    >>> config = ReconConfig(threshold_adc=15, bad_pixels=[(10, 20)])
+    >>> ReconConfig.from_toml(config.to_toml()) == config
+    True
+    """
+
+    threshold_adc: float = 20.0
+    min_pixels: int = 6
+    r_min: float = 1.5
+    r_max: float = 3.5
+    weight_scale_mm: float = 0.05
+    second_pass_centre: str = "conversion_point"
+    counts_per_kev: float = 100.0
+    saturation_adc: int = 32767
+    bad_pixels: tuple = ()
+
+    def __post_init__(self):
+        def number(name, value, *, integer=False):
+            if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+                raise ValueError(f"'{name}' must be a number (got {value!r})")
+            if integer:
+                if int(value) != value:
+                    raise ValueError(f"'{name}' must be an integer (got {value!r})")
+                value = int(value)
+            else:
+                value = float(value)
+            if not math.isfinite(value):
+                raise ValueError(f"'{name}' must be finite (got {value!r})")
+            object.__setattr__(self, name, value)
+            return value
+
+        if number("threshold_adc", self.threshold_adc) < 0:
+            raise ValueError(f"'threshold_adc' must be >= 0 (got {self.threshold_adc})")
+        if number("min_pixels", self.min_pixels, integer=True) < 1:
+            raise ValueError(f"'min_pixels' must be >= 1 (got {self.min_pixels})")
+        if number("r_min", self.r_min) < 0:
+            raise ValueError(f"'r_min' must be >= 0 (got {self.r_min})")
+        if number("r_max", self.r_max) <= self.r_min:
+            raise ValueError(f"'r_max' must be > r_min = {self.r_min} (got {self.r_max})")
+        if number("weight_scale_mm", self.weight_scale_mm) <= 0:
+            raise ValueError(f"'weight_scale_mm' must be > 0 (got {self.weight_scale_mm})")
+        if self.second_pass_centre not in SECOND_PASS_CENTRES:
+            raise ValueError(f"'second_pass_centre' must be one of {SECOND_PASS_CENTRES} "
+                             f"(got {self.second_pass_centre!r})")
+        if number("counts_per_kev", self.counts_per_kev) <= 0:
+            raise ValueError(f"'counts_per_kev' must be > 0 (got {self.counts_per_kev})")
+        number("saturation_adc", self.saturation_adc, integer=True)
+        object.__setattr__(self, "bad_pixels", self._normalise_bad_pixels(self.bad_pixels))
+
+    @staticmethod
+    def _normalise_bad_pixels(value) -> tuple:
+        arr = np.asarray(value)
+        if arr.dtype == bool and arr.ndim == 2:
+            rows, columns = np.nonzero(arr)
+            pairs = np.column_stack([columns, rows])
+        else:
+            if arr.size == 0:
+                return ()
+            if arr.ndim != 2 or arr.shape[1] != 2 or arr.dtype.kind not in "iu":
+                raise ValueError("'bad_pixels' must be a list of (column, row) integer pairs or a chip-sized "
+                                 f"boolean array indexed [row, column] (got shape {arr.shape}, dtype {arr.dtype})")
+            if (arr < 0).any():
+                raise ValueError(f"'bad_pixels' must hold non-negative (column, row) pairs (got {arr[arr.min(1) < 0][0].tolist()})")
+            pairs = arr
+        pairs = np.unique(pairs.astype(np.int64), axis=0) if len(pairs) else pairs
+        # sort by row, then column (the order of pixels on the chip)
+        order = np.lexsort((pairs[:, 0], pairs[:, 1])) if len(pairs) else []
+        return tuple((int(c), int(r)) for c, r in pairs[order])
+
+    # ------------------------------------------------------------------ derived
+    def bad_pixel_map(self, grid) -> np.ndarray:
+        """Chip-sized uint8 map, row by row (1 = bad), for ``grid``; empty when there are no bad pixels.
+
+        Raises
+        ------
+        ValueError
+            A bad pixel outside the chip.
+        """
+        if not self.bad_pixels:
+            return np.zeros(0, np.uint8)
+        pairs = np.array(self.bad_pixels, dtype=np.int64)
+        outside = ~grid.contains(pairs[:, 0], pairs[:, 1])
+        if outside.any():
+            c, r = pairs[outside][0]
+            raise ValueError(f"'bad_pixels' has pixel (column {c}, row {r}) outside the chip of "
+                             f"{grid.n_columns} columns x {grid.n_rows} rows")
+        flat = np.zeros(grid.n_pixels, np.uint8)
+        flat[pairs[:, 1] * grid.n_columns + pairs[:, 0]] = 1
+        return flat
+
+    # ------------------------------------------------------------------ TOML
+    @classmethod
+    def field_names(cls) -> list[str]:
+        return [f.name for f in fields(cls)]
+
+    def to_dict(self) -> dict:
+        return {name: getattr(self, name) for name in self.field_names()}
+
+    @classmethod
+    def from_dict(cls, values: dict, *, source: str = "config") -> ReconConfig:
+        """Build from a dict (e.g. parsed TOML); unknown keys are rejected with the list of valid ones."""
+        if "recon" in values and isinstance(values["recon"], dict) and len(values) == 1:
+            values = values["recon"]
+        unknown = sorted(set(values) - set(cls.field_names()))
+        if unknown:
+            raise ValueError(f"{source}: unknown key(s) {unknown}; valid keys are {cls.field_names()}")
+        values = dict(values)
+        if "bad_pixels" in values:
+            values["bad_pixels"] = [tuple(p) if isinstance(p, list) else p for p in values["bad_pixels"]]
+        try:
+            return cls(**values)
+        except ValueError as err:
+            raise ValueError(f"{source}: {err}") from None
+
+    def to_toml(self) -> str:
+        """The full configuration as TOML text (every key, in a ``[recon]`` table)."""
+        lines = ["# trackfit reconstruction settings (trackfit.ReconConfig)", "[recon]"]
+        for name, value in self.to_dict().items():
+            lines.append(f"{name} = {_toml_value(value)}")
+        return "\n".join(lines) + "\n"
+
+    @classmethod
+    def from_toml(cls, text: str, *, source: str = "TOML text") -> ReconConfig:
+        """Parse TOML text; keys may be at the top level or in a ``[recon]`` table."""
+        try:
+            values = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as err:
+            raise ValueError(f"{source}: not valid TOML ({err})") from None
+        return cls.from_dict(values, source=source)
+
+    @classmethod
+    def read_toml(cls, path) -> ReconConfig:
+        path = Path(path)
+        if not path.exists():
+            raise FileNotFoundError(f"config file '{path}' does not exist")
+        return cls.from_toml(path.read_text(), source=f"config file '{path}'")
+
+    def write_toml(self, path) -> Path:
+        path = Path(path)
+        path.write_text(self.to_toml())
+        return path
