@@ -49,7 +49,7 @@ def main(argv=None) -> int:
         return 2
     try:
         result = args.func(args)
-    except (CommandError, FileNotFoundError, FileExistsError, ValueError, KeyError, ImportError) as err:
+    except (CommandError, FileNotFoundError, FileExistsError, ValueError, KeyError, IndexError, ImportError) as err:
         message = err.args[0] if isinstance(err, KeyError) and err.args else err
         print(f"trackfit {args.command}: error: {message}", file=sys.stderr)
         return 2

@@ -12,7 +12,7 @@ __all__ = ["COMPRESSIONS", "DEFAULT_COMPRESSION", "dataset_filter_options", "ava
 COMPRESSIONS = ("lzf", "gzip", "none")
 #: filters that need the optional ``hdf5plugin`` package (to write and to read)
 PLUGIN_COMPRESSIONS = ("blosc-lz4", "zstd")
-DEFAULT_COMPRESSION = "lzf"
+DEFAULT_COMPRESSION = "none"
 
 
 def _plugin():
