@@ -97,6 +97,9 @@ class RawEventWriter:
         Attributes of the ``/run`` group (source, gas, pressure, voltages, free text, ...).
     created_by : str, optional
         Defaults to ``"trackfit <version>"``.
+    created_utc : str, optional
+        Value of the ``created_utc`` attribute (ISO 8601, ``YYYY-MM-DDThh:mm:ssZ``); defaults to the current time.
+        Pass a fixed value to make reruns bit-identical (the simulator does for seeded runs).
     chunk_events, chunk_pixels : int
         Chunk lengths of the per-event and the signal datasets.
     overwrite : bool
@@ -109,7 +112,8 @@ class RawEventWriter:
     """
 
     def __init__(self, path, grid: HexGrid, *, compression: str = DEFAULT_COMPRESSION, run_info=None,
-                 created_by=None, chunk_events: int = 16_384, chunk_pixels: int = 262_144, overwrite=False):
+                 created_by=None, created_utc=None, chunk_events: int = 16_384, chunk_pixels: int = 262_144,
+                 overwrite=False):
         self.path = Path(path)
         if self.path.exists() and not overwrite:
             raise FileExistsError(f"'{self.path}' exists; pass overwrite=True to replace it")
@@ -127,7 +131,7 @@ class RawEventWriter:
         f.attrs["trackfit_format"] = FORMAT_NAME
         f.attrs["format_version"] = FORMAT_VERSION
         f.attrs["created_by"] = created_by or f"trackfit {__version__}"
-        f.attrs["created_utc"] = _now_utc()
+        f.attrs["created_utc"] = created_utc or _now_utc()
         geometry = f.create_group("geometry")
         for key, value in grid.to_dict().items():
             geometry.attrs[key] = value
@@ -192,6 +196,20 @@ class RawEventWriter:
             self._append(self._file["truth"][key], batch.truth[key])
         self._n_events += len(batch)
         self._n_signal += len(batch.signal)
+
+    def add_array(self, name: str, values, **attrs) -> None:
+        """Store an extra dataset outside the groups the format defines (e.g. ``simulation/pixel_gain``).
+
+        Readers of format v1 ignore it; ``name`` must not lie in ``/events``, ``/geometry``, ``/run`` or ``/truth``.
+        """
+        if self._file is None:
+            raise ValueError(f"writer for '{self.path}' is closed")
+        top = name.strip("/").split("/")[0]
+        if top in ("events", "geometry", "run", "truth"):
+            raise ValueError(f"extra arrays cannot go into the format's group '/{top}' (got {name!r})")
+        dataset = self._file.create_dataset(name.strip("/"), data=np.asarray(values), **self._filters)
+        for key, value in attrs.items():
+            dataset.attrs[key] = _attr_value(value)
 
     def set_run_info(self, **values) -> None:
         """Add or replace attributes of ``/run`` (e.g. counters known only at the end)."""
