@@ -15,7 +15,7 @@ from importlib import resources
 from pathlib import Path
 
 from ..hexgrid import HexGrid
-from . import _toml
+from .. import _toml
 
 __all__ = [
     "SourceConfig",
