@@ -64,7 +64,7 @@ COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
     "mom2_long": ("float32", "mm^2", "second moment along the first-pass axis"),
     "mom2_trans": ("float32", "mm^2", "second moment across the first-pass axis"),
     "mom3_long": ("float32", "mm^3", "third moment along the first-pass axis"),
-    "peak_adc": ("int16", "ADC", "largest pixel signal in the ROI (unmasked pixels)"),
+    "peak_adc": ("int16", "ADC", "largest pixel signal of the main cluster (saturation checks); 0 without one"),
     "n_conv_pixels": ("int32", "", "pixels used for the conversion point"),
 }
 
@@ -417,7 +417,7 @@ class TableWriter:
         n_new = lengths.pop() if lengths else 0
         if n_new == 0:
             return
-        events = self._file["events"]
+        ready = {}  # cast and check every column before writing any, so a failed append changes nothing
         for name in self._columns:
             values = arrays[name]
             dtype = self._dtypes[name]
@@ -426,6 +426,9 @@ class TableWriter:
                 if not np.array_equal(cast, values, equal_nan=dtype.kind == "f" and values.dtype.kind == "f"):
                     raise ValueError(f"column '{name}': values do not fit the column dtype {dtype}")
                 values = cast
+            ready[name] = values
+        events = self._file["events"]
+        for name, values in ready.items():
             ds = events[name]
             ds.resize((self._n + n_new,))
             ds[self._n:] = values

@@ -1,0 +1,176 @@
+"""Event tables in memory (EventTable) and on disk (format version 1, docs/table-format.md)."""
+
+import h5py
+import numpy as np
+import pytest
+
+from trackfit import EventTable, TableFormatError, read_table, write_table
+from trackfit.io.table import COLUMN_DOCS, TableWriter
+
+
+def _columns(n=10, seed=0):
+    rng = np.random.default_rng(seed)
+    return {
+        "trigger_id": np.arange(n, dtype=np.int64) * 2,
+        "status": rng.integers(0, 4, n).astype(np.uint16),
+        "energy_kev": rng.uniform(1, 8, n).astype(np.float32),
+        "emission_rad": np.where(rng.random(n) < 0.2, np.nan, rng.uniform(-3, 3, n)),
+        "flag": rng.random(n) < 0.5,
+    }
+
+
+def test_mapping_behaviour_rows_and_selection():
+    cols = _columns()
+    table = EventTable(cols, provenance={"input_name": "run.h5"})
+    assert len(table) == 10 and table.columns == list(cols) and list(table) == list(cols)
+    assert "status" in table and "nothing" not in table
+    assert dict(table).keys() == cols.keys()
+    with pytest.raises(KeyError, match="has \\['trigger_id'"):
+        table["nothing"]
+    with pytest.raises(ValueError, match="read-only"):
+        table["status"][0] = 3
+    row = table.row(3)
+    assert set(row) == set(cols) and isinstance(row["trigger_id"], int) and isinstance(row["energy_kev"], float)
+    assert isinstance(row["flag"], bool) and row["trigger_id"] == 6
+    assert table.row(-1)["trigger_id"] == 18
+    with pytest.raises(IndexError):
+        table.row(10)
+    good = table.select(table["status"] == 0)
+    assert len(good) == int((cols["status"] == 0).sum()) and good.provenance == table.provenance
+    assert list(table.select([4, 2])["trigger_id"]) == [8, 4]
+    with pytest.raises(ValueError, match="boolean mask has 3 entries"):
+        table.select(np.ones(3, bool))
+    both = EventTable.concatenate([table, good])
+    assert len(both) == len(table) + len(good)
+    assert len(table.with_columns(extra=np.zeros(10))) == 10
+
+
+def test_construction_errors_and_empty_table():
+    with pytest.raises(ValueError, match="'b' has 3 rows but 'a' has 2"):
+        EventTable({"a": np.zeros(2), "b": np.zeros(3)})
+    with pytest.raises(ValueError, match="must be 1-D"):
+        EventTable({"a": np.zeros((2, 2))})
+    with pytest.raises(ValueError, match="numeric or boolean"):
+        EventTable({"a": np.array(["x"])})
+    empty = EventTable({})
+    assert len(empty) == 0 and empty.columns == [] and "0 rows" in repr(empty)
+
+
+def test_summary_repr_html_and_pandas():
+    table = EventTable(_columns(), provenance={"input_name": "run.h5"})
+    text = table.summary()
+    assert "10 rows" in text and "emission_rad" in text and "run.h5" in text and "status == 0" in text
+    nan_count = int(np.isnan(table["emission_rad"]).sum())
+    line = next(ln for ln in text.splitlines() if ln.startswith("emission_rad"))
+    assert line.split()[-1] == str(nan_count)
+    assert "EventTable(10 rows" in repr(table)
+    assert "<table>" in table._repr_html_() and "energy_kev" in table._repr_html_()
+    pd = pytest.importorskip("pandas")
+    frame = table.to_pandas()
+    assert isinstance(frame, pd.DataFrame) and len(frame) == 10 and frame.attrs["provenance"]["input_name"] == "run.h5"
+
+
+def test_to_pandas_without_pandas(monkeypatch):
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_pandas(name, *args, **kwargs):
+        if name == "pandas":
+            raise ImportError("no pandas here")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", no_pandas)
+    with pytest.raises(ImportError, match="pip install pandas"):
+        EventTable(_columns()).to_pandas()
+
+
+@pytest.mark.parametrize("compression", ["lzf", "gzip", "none"])
+def test_write_read_round_trip(tmp_path, compression):
+    table = EventTable(_columns(1000), provenance={"input_name": "run.h5", "config_toml": "x = 1\n" * 2000,
+                                                    "input_size_bytes": 12345, "numbers": [1.5, 2.5]})
+    path = write_table(tmp_path / "t.h5", table, provenance={"note": "extra"}, compression=compression)
+    back = read_table(path)
+    assert back.columns == table.columns
+    for name in table:
+        assert back[name].dtype == table[name].dtype
+        assert np.array_equal(back[name], table[name], equal_nan=name == "emission_rad")
+    prov = back.provenance
+    assert prov["config_toml"] == "x = 1\n" * 2000 and prov["note"] == "extra" and prov["input_size_bytes"] == 12345
+    assert prov["numbers"] == [1.5, 2.5] and "trackfit_version" in prov and "created_utc" in prov
+    some = read_table(path, ["status", "trigger_id"], start=100, stop=110)
+    assert some.columns == ["status", "trigger_id"] and list(some["trigger_id"]) == list(range(200, 220, 2))
+    with h5py.File(path) as f:  # the layout of docs/table-format.md
+        assert f.attrs["trackfit_format"] == "event-table" and f.attrs["format_version"] == 1
+        ds = f["events/status"]
+        assert ds.chunks is not None and ds.maxshape == (None,)
+        assert (ds.compression is None) == (compression == "none")
+        assert ds.attrs["description"] == COLUMN_DOCS["status"][2]
+
+
+def test_streaming_writer_appends_and_renames(tmp_path):
+    path = tmp_path / "stream.h5"
+    with TableWriter(path, provenance={"a": 1}, chunk_rows=7) as writer:
+        assert (tmp_path / "stream.h5.partial").exists() and not path.exists()
+        writer.append(_columns(10, 1))
+        writer.append(EventTable(_columns(5, 2)))
+        writer.append({k: v[:0] for k, v in _columns(3).items()})
+        writer.set_provenance(fingerprint="abc")
+        with pytest.raises(ValueError, match="differ from those of earlier appends"):
+            writer.append({"status": np.zeros(2, np.uint16)})
+        with pytest.raises(ValueError, match="do not fit the column dtype"):
+            writer.append({**_columns(2), "status": np.array([1.5, 2.0])})
+    table = read_table(path)
+    assert len(table) == 15 and table.provenance["fingerprint"] == "abc" and table.provenance["a"] == 1
+    assert not (tmp_path / "stream.h5.partial").exists()
+    with pytest.raises(FileExistsError):
+        TableWriter(path)
+
+
+def test_aborted_writer_leaves_nothing(tmp_path):
+    path = tmp_path / "crash.h5"
+    with pytest.raises(RuntimeError), TableWriter(path) as writer:
+        writer.append(_columns(4))
+        raise RuntimeError("boom")
+    assert not path.exists() and not (tmp_path / "crash.h5.partial").exists()
+
+
+def _corrupt(path, action):
+    with h5py.File(path, "r+") as f:
+        action(f)
+
+
+@pytest.mark.parametrize("action, dataset, text", [
+    (lambda f: f.attrs.__setitem__("trackfit_format", "raw-events"), "/", "must be 'event-table'"),
+    (lambda f: f.attrs.__setitem__("format_version", 2), "/", "unknown format_version 2"),
+    (lambda f: f.attrs.__delitem__("format_version"), "/", "missing root attribute 'format_version'"),
+    (lambda f: f.__delitem__("events"), "/events", "missing group"),
+    (lambda f: (f["events"].__delitem__("status"), f["events"].create_dataset("status", data=np.zeros(3))),
+     "/events/status", "has 3 rows but /events/trigger_id has 10"),
+    (lambda f: f["events"].create_dataset("image", data=np.zeros((10, 2))), "/events/image", "expected a 1-D"),
+    (lambda f: f["events"].create_group("sub"), "/events/sub", "expected a dataset, found a group"),
+])
+def test_malformed_files_name_file_and_dataset(tmp_path, action, dataset, text):
+    path = write_table(tmp_path / "t.h5", _columns())
+    _corrupt(path, action)
+    with pytest.raises(TableFormatError) as err:
+        read_table(path)
+    assert isinstance(err.value, ValueError) and err.value.dataset == dataset
+    assert str(path) in str(err.value) and text in str(err.value) and f"dataset '{dataset}'" in str(err.value)
+
+
+def test_unknown_columns_and_wrong_files(tmp_path):
+    path = write_table(tmp_path / "t.h5", _columns())
+    with pytest.raises(KeyError) as err:
+        read_table(path, ["status", "energy"])
+    assert "['energy']" in str(err.value) and "energy_kev" in str(err.value)
+    notes = tmp_path / "notes.h5"
+    notes.write_text("not hdf5")
+    with pytest.raises(TableFormatError, match="not a readable HDF5 file"):
+        read_table(notes)
+    with pytest.raises(FileNotFoundError):
+        read_table(tmp_path / "missing.h5")
+    with pytest.raises(FileExistsError):
+        write_table(path, _columns())
+    write_table(path, _columns(3), overwrite=True)
+    assert len(read_table(path)) == 3
