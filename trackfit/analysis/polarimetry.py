@@ -1,0 +1,169 @@
+"""One call from an event table to a polarization result: select, calibrate, weight, subtract, measure.
+
+:func:`measure_polarization` is what the ``trackfit polarization`` command runs; use it from Python when the
+defaults fit, and the pieces (:mod:`~trackfit.analysis.selection`, :class:`~trackfit.analysis.Calibration`,
+:func:`~trackfit.analysis.stokes_parameters`) when they do not.
+"""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .calfile import Calibration
+from .modulation import ModulationFit, modulation_curve
+from .selection import Cut, CutFlow, Everything, select_rows
+from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights, stokes_in_bands, stokes_sums
+
+__all__ = ["PolarizationMeasurement", "measure_polarization", "event_weights", "WEIGHTINGS"]
+
+#: per-event weighting schemes known by name
+WEIGHTINGS = ("none", "ellipticity")
+
+
+def event_weights(table: Mapping, weighting) -> np.ndarray | None:
+    """Per-event weights of a table: ``"none"`` -> None, ``"ellipticity"`` -> :func:`ellipticity_weights`,
+    or an array (one weight per row)."""
+    if weighting is None or (isinstance(weighting, str) and weighting == "none"):
+        return None
+    if isinstance(weighting, str):
+        if weighting != "ellipticity":
+            raise ValueError(f"unknown weighting {weighting!r}; expected one of {WEIGHTINGS} or an array")
+        return ellipticity_weights(table["mom2_long"], table["mom2_trans"])
+    w = np.asarray(weighting, dtype=float)
+    n = len(table["emission_rad"])
+    if w.shape != (n,):
+        raise ValueError(f"weights must have one value per event, shape ({n},) (got {w.shape})")
+    return w
+
+
+@dataclass(frozen=True, kw_only=True)
+class PolarizationMeasurement:
+    """Result of :func:`measure_polarization`: the Stokes result, its cut flow, bands and the modulation curve."""
+
+    stokes: StokesResult
+    cut_flow: CutFlow
+    modulation: ModulationFit | None
+    bands: StokesBands | None = None
+    background_cut_flow: CutFlow | None = None
+    settings: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        out = {"stokes": self.stokes.to_dict(), "cut_flow": self.cut_flow.to_dict(), "settings": self.settings}
+        if self.modulation is not None:
+            m = self.modulation
+            out["modulation_curve"] = {"modulation": m.modulation, "modulation_err": m.modulation_err,
+                                       "phase_deg": float(np.rad2deg(m.phase_rad)),
+                                       "phase_err_deg": float(np.rad2deg(m.phase_err_rad)), "chi2": m.chi2,
+                                       "ndof": m.ndof, "n_bins": int(m.counts.size)}
+        if self.bands is not None:
+            out["energy_bands"] = self.bands.to_dict()
+        if self.background_cut_flow is not None:
+            out["background_cut_flow"] = self.background_cut_flow.to_dict()
+        return out
+
+    def __repr__(self):
+        parts = [repr(self.stokes), "", "Cut flow", str(self.cut_flow)]
+        if self.background_cut_flow is not None:
+            parts += ["", "Background cut flow", str(self.background_cut_flow)]
+        if self.bands is not None:
+            parts += ["", "Energy bands", repr(self.bands)]
+        if self.modulation is not None:
+            parts += ["", repr(self.modulation)]
+        return "\n".join(parts)
+
+    def _repr_html_(self):
+        pieces = [self.stokes._repr_html_(), self.cut_flow._repr_html_()]
+        if self.bands is not None:
+            pieces.append(self.bands._repr_html_())
+        if self.modulation is not None:
+            pieces.append(self.modulation._repr_html_())
+        return "".join(pieces) or html.escape(repr(self))
+
+
+def _prepared(table, calibration, selection, use_gain_drift):
+    columns = calibration.apply(table, use_gain_drift=use_gain_drift) if calibration is not None else dict(table)
+    flow = selection.cut_flow(columns)
+    mask = selection.mask(columns)
+    return select_rows(columns, mask), flow
+
+
+def _corrections(events, calibration, modulation_factor, weighting):
+    if modulation_factor is not None:
+        mu = modulation_factor
+    elif calibration is not None and calibration.modulation_factor is not None:
+        mu = events["modulation_factor"]
+    else:
+        raise ValueError("measuring polarization needs a modulation factor: a calibration with a "
+                         "modulation_factor curve, or modulation_factor=<value>")
+    spurious = {}
+    if calibration is not None and calibration.spurious_modulation is not None:
+        spurious = {"spurious_q": events["spurious_q"], "spurious_u": events["spurious_u"]}
+    return mu, event_weights(events, weighting), spurious
+
+
+def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibration: Calibration | None = None,
+                         modulation_factor: float | None = None, weighting="none",
+                         background_selection: Cut | None = None, background_table: Mapping | None = None,
+                         background_scale: float | None = None, energy_bands_kev=None, n_bins: int = 36,
+                         use_gain_drift: bool = False,
+                         confidence_level: float = ONE_SIGMA_LEVEL) -> PolarizationMeasurement:
+    """Select events, apply a calibration, and measure the polarization.
+
+    Parameters
+    ----------
+    table : mapping of column arrays
+        An event table (``emission_rad`` and whatever the selection and calibration need).
+    selection : Cut, optional
+        Source events (default: all).
+    calibration : Calibration, optional
+        Applied before the selection (so energy cuts use calibrated energies); its modulation-factor curve
+        and spurious map are used per event.
+    modulation_factor : float, optional
+        One modulation factor for all events (overrides the calibration's curve).
+    weighting : {"none", "ellipticity"} or array_like
+        Per-event weights (Di Marco et al. 2022); the modulation factor must be measured with the same weights.
+    background_selection : Cut, optional
+        Off-source events, taken from ``background_table`` (default: the same table), subtracted with
+        ``background_scale`` = (area x time on) / (area x time off) (required with a background).
+    energy_bands_kev : array_like, optional
+        Band edges for a per-band table.
+    n_bins : int
+        Bins of the modulation curve (multiple of 12).
+    use_gain_drift : bool
+        Apply the calibration's gain drift (only for the run it was measured on).
+    confidence_level : float
+        Level of the Rice interval of the degree.
+    """
+    selection = selection if selection is not None else Everything()
+    events, flow = _prepared(table, calibration, selection, use_gain_drift)
+    mu, weights, spurious = _corrections(events, calibration, modulation_factor, weighting)
+    sums = stokes_sums(events["emission_rad"], modulation_factor=mu, weights=weights, **spurious)
+    background_flow = None
+    if background_selection is not None or background_table is not None:
+        if background_scale is None:
+            raise ValueError("a background needs background_scale = (area x time on) / (area x time off)")
+        off_table = background_table if background_table is not None else table
+        off_selection = background_selection if background_selection is not None else Everything()
+        off_events, background_flow = _prepared(off_table, calibration, off_selection, use_gain_drift)
+        off_mu, off_w, off_spurious = _corrections(off_events, calibration, modulation_factor, weighting)
+        off_sums = stokes_sums(off_events["emission_rad"], modulation_factor=off_mu, weights=off_w, **off_spurious)
+        sums = sums.subtract(off_sums, background_scale)
+    result = StokesResult.from_sums(sums, confidence_level=confidence_level)
+    bands = None
+    if energy_bands_kev is not None:
+        bands = stokes_in_bands(events["emission_rad"], events["energy_kev"], energy_bands_kev,
+                                modulation_factor=mu, weights=weights, confidence_level=confidence_level,
+                                **spurious)
+    phi = np.asarray(events["emission_rad"], dtype=float)
+    modulation = modulation_curve(phi, n_bins=n_bins, weights=weights) if np.isfinite(phi).sum() >= 2 else None
+    settings = {"selection": selection.to_dict(), "weighting": weighting if isinstance(weighting, str) else "array",
+                "modulation_factor": modulation_factor, "calibration_parts": calibration.parts() if calibration
+                else [], "background_selection": None if background_selection is None
+                else background_selection.to_dict(), "background_scale": background_scale, "n_bins": n_bins,
+                "confidence_level": confidence_level}
+    return PolarizationMeasurement(stokes=result, cut_flow=flow, modulation=modulation, bands=bands,
+                                   background_cut_flow=background_flow, settings=settings)
