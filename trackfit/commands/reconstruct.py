@@ -1,0 +1,163 @@
+"""``trackfit reconstruct RAW... (-o OUT | --out-dir DIR)``: raw event files to event tables.
+
+One file runs in this process with kernel threads; several files run in parallel in a process pool started with
+the ``spawn`` method (numba's threading layers may hang in a forked child). One progress bar counts the events of
+all files.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from ..cli import CommandError
+
+
+def register(subparsers):
+    parser = subparsers.add_parser(
+        "reconstruct", help="reconstruct raw event files into event tables",
+        description="Clean each event (threshold, bad pixels, main cluster) and run the two-stage moment "
+        "analysis: energy, conversion point and emission angle of every event, one table row per input event "
+        "(docs/table-format.md).")
+    parser.add_argument("raw", nargs="+", metavar="RAW", help="raw event file(s)")
+    out = parser.add_mutually_exclusive_group(required=True)
+    out.add_argument("-o", "--output", metavar="OUT", help="event-table file to write (one RAW only)")
+    out.add_argument("--out-dir", metavar="DIR", help="folder for the tables, named <raw stem>_events.h5")
+    parser.add_argument("--config", metavar="TOML", help="reconstruction settings (trackfit.ReconConfig keys)")
+    parser.add_argument("--workers", type=int, default=1, metavar="N",
+                        help="files reconstructed in parallel, one process each (default 1)")
+    parser.add_argument("--threads", type=int, default=None, metavar="N",
+                        help="kernel threads per file (default: all CPUs with one worker, 1 with several)")
+    parser.add_argument("--batch-size", type=int, default=None, metavar="N", help="events per batch")
+    parser.add_argument("--strict", action="store_true",
+                        help="stop at the first malformed event instead of flagging it")
+    parser.add_argument("--overwrite", action="store_true", help="replace existing output files")
+    parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+    parser.set_defaults(func=run)
+
+
+def _jobs(args):
+    raws = [Path(p) for p in args.raw]
+    for raw in raws:
+        if not raw.exists():
+            raise FileNotFoundError(f"raw event file '{raw}' does not exist")
+    if args.output is not None:
+        if len(raws) != 1:
+            raise CommandError(f"-o/--output takes one RAW file (got {len(raws)}); use --out-dir for several")
+        outs = [Path(args.output)]
+    else:
+        from ..recon.pipeline import output_name
+
+        out_dir = Path(args.out_dir)
+        out_dir.mkdir(parents=True, exist_ok=True)
+        outs = [output_name(raw, out_dir) for raw in raws]
+        seen = {}
+        for raw, out in zip(raws, outs, strict=True):
+            if out in seen:
+                raise CommandError(f"'{raw}' and '{seen[out]}' would both be written to '{out}'")
+            seen[out] = raw
+    if not args.overwrite:
+        for out in outs:
+            if out.exists():
+                raise FileExistsError(f"'{out}' exists; pass --overwrite to replace it")
+    return list(zip(raws, outs, strict=True))
+
+
+def _worker(raw, out, config_toml, options, progress_queue):
+    """Reconstruct one file in a pool process; progress goes to the parent through a manager queue."""
+    from ..recon import ReconConfig, reconstruct_file
+
+    config = ReconConfig.from_toml(config_toml)
+    report = (lambda n: progress_queue.put(n)) if progress_queue is not None else False
+    reconstruct_file(raw, out, config, progress=report, **options)
+    return _summary(out)
+
+
+def _summary(out) -> str:
+    import numpy as np
+
+    from ..io.table import read_table
+
+    table = read_table(out, ["status"])
+    status = table["status"]
+    n = len(status)
+    ok = int(np.count_nonzero(status == 0))
+    malformed = table.provenance.get("n_malformed_events", 0)
+    share = f"{100.0 * ok / n:.1f} %" if n else "-"
+    return f"wrote {out}: {n} events, {ok} fully reconstructed ({share}), {malformed} malformed"
+
+
+def run(args) -> int:
+    from ..io.raw import open_raw
+    from ..recon import ReconConfig
+
+    if args.workers < 1:
+        raise CommandError(f"--workers must be >= 1 (got {args.workers})")
+    if args.batch_size is not None and args.batch_size < 1:
+        raise CommandError(f"--batch-size must be >= 1 (got {args.batch_size})")
+    config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
+    jobs = _jobs(args)
+    totals = []
+    for raw, _ in jobs:
+        with open_raw(raw, strict=args.strict) as reader:
+            totals.append(len(reader))
+    workers = min(args.workers, len(jobs))
+    threads = args.threads if args.threads is not None else ((os.cpu_count() or 1) if workers == 1 else 1)
+    options = {"threads": threads, "strict": args.strict, "overwrite": args.overwrite}
+    if args.batch_size is not None:
+        options["batch_size"] = args.batch_size
+
+    from tqdm.auto import tqdm
+
+    bar = tqdm(total=sum(totals), unit="ev", unit_scale=True, disable=args.no_progress, dynamic_ncols=True,
+               desc="reconstruct")
+    failures = []
+    try:
+        if workers == 1:
+            from ..recon import reconstruct_file
+
+            for raw, out in jobs:
+                try:
+                    reconstruct_file(raw, out, config, progress=bar.update, **options)
+                except (ValueError, OSError, KeyError) as err:
+                    failures.append(f"{raw}: {err}")
+                    continue
+                bar.write(_summary(out))
+        else:
+            failures = _run_pool(jobs, config, options, workers, bar)
+    finally:
+        bar.close()
+    if failures:
+        raise CommandError("; ".join(failures))
+    return 0
+
+
+def _run_pool(jobs, config, options, workers, bar):
+    import multiprocessing
+    import queue
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    context = multiprocessing.get_context("spawn")
+    failures = []
+    with context.Manager() as manager, ProcessPoolExecutor(workers, mp_context=context) as pool:
+        progress = manager.Queue()
+        futures = {pool.submit(_worker, raw, out, config.to_toml(), options, progress): raw for raw, out in jobs}
+        pending = set(futures)
+
+        def drain():
+            while True:
+                try:
+                    bar.update(progress.get_nowait())
+                except queue.Empty:
+                    return
+
+        while pending:
+            done, pending = wait(pending, timeout=0.2, return_when=FIRST_COMPLETED)
+            drain()
+            for future in done:
+                try:
+                    bar.write(future.result())
+                except (ValueError, OSError, KeyError) as err:
+                    failures.append(f"{futures[future]}: {err}")
+        drain()
+    return failures
