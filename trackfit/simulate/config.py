@@ -14,8 +14,8 @@ from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
 
-from ..hexgrid import HexGrid
 from .. import _toml
+from ..hexgrid import HexGrid
 
 __all__ = [
     "SourceConfig",
