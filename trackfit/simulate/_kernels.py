@@ -238,13 +238,12 @@ def simulate_events(rng, x0_mm, y0_mm, z0_mm, pe_dir, pe_kev, auger_dir, auger_k
         deposit = 0.0
         for k in range(n_seg):
             deposit += seg[k, 6]
-        # --- number of ionization electrons (Fano: binomial with p = 1 - F)
-        mean_pairs = deposit / w_kev
-        if fano > 0:
-            n_e = rng.binomial(np.int64(mean_pairs / one_minus_f + 0.5), one_minus_f)
-        else:
-            n_e = np.int64(mean_pairs + 0.5)
-        n_e = min(n_e, touched.shape[0])
+        # --- number of ionization electrons: Binomial(E / W / (1 - F), 1 - F) has mean E/W, variance F E/W
+        trials = deposit / w_kev / one_minus_f
+        n_trials = np.int64(math.floor(trials))
+        if rng.random() < trials - n_trials:        # randomised rounding keeps the mean exactly E / W
+            n_trials += 1
+        n_e = rng.binomial(n_trials, one_minus_f) if fano > 0 else n_trials
         n_ionization[i] = n_e
         # --- place the electrons along the deposits (stratified in deposited energy), drift and diffuse
         n_touched = 0

@@ -146,11 +146,11 @@ def simulate_events(rng, photons, gain_factor, mixture, config, pixel_gain=None)
         deposit = 0.0
         for v in seg[:, 6]:
             deposit += v
-        mean_pairs = deposit / w_kev
-        if fano > 0:
-            n_e = int(rng.binomial(int(mean_pairs / (1.0 - fano) + 0.5), 1.0 - fano))
-        else:
-            n_e = int(mean_pairs + 0.5)
+        trials = deposit / w_kev / (1.0 - fano)
+        n_trials = math.floor(trials)
+        if rng.random() < trials - n_trials:
+            n_trials += 1
+        n_e = int(rng.binomial(n_trials, 1.0 - fano)) if fano > 0 else n_trials
         # electron positions along the deposits, stratified in deposited energy
         counts: dict[tuple[int, int], int] = {}
         k_seg, before, acc = 0, 0.0, seg[0, 6]

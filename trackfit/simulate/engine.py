@@ -157,12 +157,10 @@ class _Simulator:
         self._pixel_gain_flat = (np.ones(grid.n_pixels) if self.pixel_gain is None
                                  else np.ascontiguousarray(self.pixel_gain.ravel(), dtype=np.float64))
         self.consts = self.mixture.stopping_constants()
-        max_energy = config.source.energy_range_kev[1]
-        max_electrons = int(max_energy * 1000.0 / config.gas.w_value_ev * 1.5) + 64
         self.seg = np.empty((200_000, 7))
         self.count = np.zeros(grid.n_pixels, dtype=np.int64)
         self.charge = np.zeros(grid.n_pixels)
-        self.touched = np.zeros(max_electrons, dtype=np.int64)
+        self.touched = np.zeros(grid.n_pixels, dtype=np.int64)      # pixels hit by the current event
         self.signal = np.zeros(1 << 20, dtype=np.int16)
 
     def chunk(self, n: int, first_trigger_id: int = 0):

@@ -137,17 +137,18 @@ def isotropic_directions(n: int, rng) -> np.ndarray:
 def ionization_electrons(energy_kev, w_value_ev: float, fano_factor: float, rng) -> np.ndarray:
     """Number of ionization electrons from deposited energies: mean ``E / W``, variance ``F E / W``.
 
-    Drawn as ``Binomial(round(N̄ / (1 - F)), 1 - F)`` (as the event kernel does).
+    Drawn as ``Binomial(T, 1 - F)`` with ``T`` the randomised rounding of ``N̄ / (1 - F)`` (as the event kernel
+    does), so the mean is exactly ``N̄``.
     """
     rng = _generator(rng)
     if w_value_ev <= 0:
         raise ValueError(f"'w_value_ev' must be > 0 (got {w_value_ev})")
     if not 0 <= fano_factor < 1:
         raise ValueError(f"'fano_factor' must be in [0, 1) (got {fano_factor})")
-    mean = np.asarray(energy_kev, dtype=np.float64) * 1000.0 / w_value_ev
-    if fano_factor == 0:
-        return np.floor(mean + 0.5).astype(np.int64)
-    return rng.binomial(np.floor(mean / (1.0 - fano_factor) + 0.5).astype(np.int64), 1.0 - fano_factor)
+    trials = np.asarray(energy_kev, dtype=np.float64) * 1000.0 / w_value_ev / (1.0 - fano_factor)
+    n_trials = np.floor(trials).astype(np.int64)
+    n_trials += rng.random(trials.shape) < trials - n_trials      # randomised rounding: the mean stays E / W
+    return rng.binomial(n_trials, 1.0 - fano_factor) if fano_factor > 0 else n_trials
 
 
 def polya_gain(size, mean_gain: float, theta: float, rng) -> np.ndarray:
