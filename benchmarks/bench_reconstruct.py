@@ -1,0 +1,181 @@
+"""Reconstruction speed and memory, as ratios against baselines measured in the same run (issue 3, section 6).
+
+Run:  python benchmarks/bench_reconstruct.py [--events 200000] [--no-memory] [--workdir DIR]
+
+Prints side by side:
+
+1. kernel: events/s of the numba kernel on one core (and two threads) over ROIs of 28 x 27 = 756 pixels, against a
+   per-event numpy + ``scipy.ndimage`` implementation (``trackfit.recon._reference``: vectorised within each event,
+   what a user would write by hand). Targets: >= 250k events/s per core and >= 35x the per-event implementation.
+2. pipeline: ``reconstruct_file`` on the file against (a) the bare I/O it cannot avoid - an h5py read of the raw
+   arrays plus the write of the output columns - and (b) the kernel alone on the same events held in memory.
+   Target: the pipeline takes at most 1.25x the slower of (a) and (b).
+3. memory: peak resident memory of ``reconstruct_file`` in a fresh process for files of 1e5 and 1e6 events (the
+   larger file repeats the events of the smaller one ten times). Target: independent of the file size.
+
+The events are toy tracks (``trackfit.recon._synthetic``: a 0.6 mm segment with charge rising towards its end,
+diffused by 60 um, about 56 pixels above the default threshold of 20 ADC counts) with Gaussian pixel noise of 6 ADC
+counts (common practice for pedestal-subtracted CMOS pixels). The machine may be shared with other work: run twice
+and compare, and read the ratios rather than the absolute numbers.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from trackfit import EventBatch, RawEventWriter, ReconConfig, open_raw, reconstruct_file
+from trackfit.io.table import TableWriter
+from trackfit.recon._reference import reconstruct_batch_reference
+from trackfit.recon._synthetic import toy_tracks
+from trackfit.recon.pipeline import DEFAULT_BATCH_SIZE, _columns, _Prepared
+
+ROI_SHAPE = (28, 27)
+TRACK = dict(length_mm=0.6, diffusion_mm=0.06, adc_per_electron=6.0, noise_adc=6.0, roi_shape=ROI_SHAPE)
+
+
+def make_file(path, n, seed=1, chunk=20_000, repeat=1):
+    """Write ``n`` toy events (``repeat`` copies of them when ``repeat > 1``)."""
+    rng = np.random.default_rng(seed)
+    blocks = [toy_tracks(min(chunk, n - a), rng, **TRACK) for a in range(0, n, chunk)]
+    with RawEventWriter(path, blocks[0].grid, overwrite=True) as writer:
+        for _ in range(repeat):
+            for block in blocks:
+                writer.append(EventBatch(roi=block.roi, start=block.start, signal=block.signal,
+                                         time_s=block.time_s, grid=block.grid, validate=False))
+    return path
+
+
+def best_of(fn, repeats):
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t)
+    return min(times)
+
+
+def bench_kernel(batch, config, repeats=5):
+    from concurrent.futures import ThreadPoolExecutor
+
+    prepared = _Prepared(config, batch.grid)
+    prepared.run(batch)  # compile (or load from cache) outside the timing
+    one = best_of(lambda: prepared.run(batch), repeats)
+    with ThreadPoolExecutor(2) as pool:
+        two = best_of(lambda: prepared.run(batch, 2, pool), repeats)
+    n_reference = min(2000, len(batch))
+    sub = batch.select(np.arange(n_reference))
+    reference = best_of(lambda: reconstruct_batch_reference(sub, config), 1) / n_reference * len(batch)
+    return one, two, reference
+
+
+def bare_io(raw_path, table_columns, out_path, batch_size):
+    """Seconds to read the raw arrays with h5py, and to write the output columns, in batches."""
+    t = time.perf_counter()
+    with h5py.File(raw_path, "r") as f:
+        ev = f["events"]
+        n = ev["roi"].shape[0]
+        for a in range(0, n, batch_size):
+            b = min(a + batch_size, n)
+            start = ev["start"][a:b + 1]
+            ev["roi"][a:b]
+            ev["time_s"][a:b]
+            ev["trigger_id"][a:b]
+            ev["signal"][int(start[0]):int(start[-1])]
+    read = time.perf_counter() - t
+    t = time.perf_counter()
+    with TableWriter(out_path, overwrite=True, chunk_rows=min(batch_size, 65_536)) as writer:
+        for a in range(0, n, batch_size):
+            writer.append({k: v[a:a + batch_size] for k, v in table_columns.items()})
+    write = time.perf_counter() - t
+    return read, write
+
+
+_MEMORY_CHILD = """
+import json, resource, sys
+from trackfit import reconstruct_file
+reconstruct_file(sys.argv[1], sys.argv[2], progress=False, overwrite=True)
+print(json.dumps({"peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+"""
+
+
+def peak_rss_mb(raw_path, out_path):
+    result = subprocess.run([sys.executable, "-c", _MEMORY_CHILD, str(raw_path), str(out_path)], check=True,
+                            capture_output=True, text=True)
+    return json.loads(result.stdout.strip().splitlines()[-1])["peak_rss_mb"]
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--events", type=int, default=200_000, help="events of the benchmark file (>= 200000)")
+    parser.add_argument("--batch-size", type=int, default=DEFAULT_BATCH_SIZE)
+    parser.add_argument("--no-memory", action="store_true", help="skip the 1e5 / 1e6 event memory check")
+    parser.add_argument("--workdir", default=None, help="folder for the temporary files (default: a temp folder)")
+    args = parser.parse_args(argv)
+    config = ReconConfig()
+    with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
+        tmp = Path(tmp)
+        t = time.perf_counter()
+        raw = make_file(tmp / "bench.h5", args.events)
+        print(f"made {args.events} toy events ({ROI_SHAPE[0]} x {ROI_SHAPE[1]} pixel ROIs) in "
+              f"{time.perf_counter() - t:.1f} s; file {raw.stat().st_size / 1e6:.0f} MB (lzf); "
+              f"{os.cpu_count()} CPUs; load average {os.getloadavg()[0]:.2f}")
+        with open_raw(raw) as reader:
+            batch = reader.read_all(with_truth=False)
+        n = len(batch)
+        n_pix = int(batch.start[-1])
+
+        # 1. kernel
+        one, two, reference = bench_kernel(batch, config)
+        out_f, out_i = _Prepared(config, batch.grid).run(batch)
+        columns = _columns(batch, out_f, out_i)
+        print(f"\nhit pixels per event {columns['n_pixels'].mean():.1f}, status == 0 for "
+              f"{np.mean(columns['status'] == 0):.1%}")
+        print("\n1. kernel                         events/s     ns/ROI pixel   ratio")
+        print(f"   numpy + scipy.ndimage, 1 core  {n / reference:>11,.0f}   {reference / n_pix * 1e9:>10.1f}   1.0")
+        print(f"   numba kernel, 1 thread         {n / one:>11,.0f}   {one / n_pix * 1e9:>10.2f}   "
+              f"{reference / one:,.0f}x   (target >= 250,000/s and >= 35x)")
+        print(f"   numba kernel, 2 threads        {n / two:>11,.0f}   {two / n_pix * 1e9:>10.2f}   "
+              f"{reference / two:,.0f}x")
+
+        # 2. pipeline
+        read, write = bare_io(raw, columns, tmp / "bare_out.h5", args.batch_size)
+        bare = read + write
+        timings = {}
+        for threads in (1, 2):
+            timings[threads] = best_of(lambda th=threads: reconstruct_file(
+                raw, tmp / "out.h5", config, batch_size=args.batch_size, progress=False, overwrite=True,
+                threads=th), 3)
+        print("\n2. pipeline (seconds)")
+        print(f"   (a) bare h5py read of the raw arrays {read:.2f} + write of the columns {write:.2f} = {bare:.2f}")
+        print(f"   (b) kernel alone: 1 thread {one:.2f}, 2 threads {two:.2f}")
+        for threads, kernel in ((1, one), (2, two)):
+            slower = max(bare, kernel)
+            print(f"   reconstruct_file, {threads} kernel thread(s): {timings[threads]:.2f} s = "
+                  f"{timings[threads] / slower:.2f}x max(a, b = {kernel:.2f})   (target <= 1.25x); "
+                  f"{n / timings[threads]:,.0f} events/s")
+
+        # 3. memory
+        if not args.no_memory:
+            small = make_file(tmp / "mem_1e5.h5", 100_000, seed=2)
+            large = make_file(tmp / "mem_1e6.h5", 100_000, seed=2, repeat=10)
+            rss_small = peak_rss_mb(small, tmp / "mem_out_small.h5")
+            rss_large = peak_rss_mb(large, tmp / "mem_out_large.h5")
+            print("\n3. peak RSS of reconstruct_file in a fresh process (batch size "
+                  f"{DEFAULT_BATCH_SIZE})")
+            print(f"   1e5 events ({small.stat().st_size / 1e6:.0f} MB): {rss_small:.0f} MB")
+            print(f"   1e6 events ({large.stat().st_size / 1e6:.0f} MB): {rss_large:.0f} MB   "
+                  f"ratio {rss_large / rss_small:.2f} (target: about 1)")
+
+
+if __name__ == "__main__":
+    main()
