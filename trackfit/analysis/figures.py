@@ -1,0 +1,169 @@
+"""Figures of the analysis results (matplotlib, imported lazily inside each function).
+
+Every function takes a result object and an optional ``ax`` (a new figure is made when it is ``None``) and
+returns the :class:`matplotlib.figure.Figure`. Angles are shown in degrees.
+
+* :func:`plot_spectrum_fit` - pulse-height spectrum with the fitted line model;
+* :func:`plot_gain_map` - relative gain over the chip;
+* :func:`plot_gain_drift` - slice peaks and the smooth gain model versus time;
+* :func:`plot_modulation_curve` - angle histogram with the fitted ``A + B cos^2``;
+* :func:`plot_stokes_plane` - (Q, U) with the 1-sigma and 2-sigma error ellipses and the MDP99 circle;
+* :func:`plot_modulation_factor` - measured points and the fitted curve;
+* :func:`plot_spurious_map` - Q_sp and U_sp over the chip at one energy node.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["plot_spectrum_fit", "plot_gain_map", "plot_gain_drift", "plot_modulation_curve", "plot_stokes_plane",
+           "plot_modulation_factor", "plot_spurious_map", "save_figure"]
+
+
+def _axes(ax, figsize=(6.0, 4.2)):
+    import matplotlib.pyplot as plt
+
+    if ax is None:
+        fig, ax = plt.subplots(figsize=figsize, layout="constrained")
+    return ax.figure, ax
+
+
+def save_figure(fig, path) -> None:
+    """Save and close a figure (closing keeps memory flat when many figures are written)."""
+    import matplotlib.pyplot as plt
+
+    fig.savefig(path, dpi=120)
+    plt.close(fig)
+
+
+def plot_spectrum_fit(fit, *, ax=None, xlabel: str = "pulse height [ADC]"):
+    """Histogram of a :class:`~trackfit.analysis.LineFit` with the fitted model per bin and as a curve."""
+    fig, ax = _axes(ax)
+    edges, data = fit.edges, fit.data
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    ax.errorbar(centres, data, yerr=np.sqrt(np.maximum(data, 1.0)), fmt="o", ms=2.5, lw=0.8, color="0.2",
+                label="data")
+    fine = np.linspace(edges[0], edges[-1], 600)
+    ax.plot(fine, fit.density(fine) * np.diff(edges).mean(), color="tab:red", lw=1.4, label="fit")
+    text = (f"peak {fit.peak:.5g} ± {fit.peak_err:.2g}\nFWHM/peak {100 * fit.fwhm_frac:.1f} %\n"
+            f"deviance/ndof {fit.deviance:.1f}/{fit.ndof}")
+    ax.text(0.02, 0.97, text, transform=ax.transAxes, va="top", fontsize=8, family="monospace")
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel("events per bin")
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    return fig
+
+
+def plot_gain_map(gain_map, *, ax=None):
+    """Relative gain per cell (unmeasured cells blank)."""
+    fig, ax = _axes(ax, figsize=(5.6, 4.8))
+    values = np.ma.masked_invalid(gain_map.relative_gain.T)
+    mesh = ax.pcolormesh(gain_map.x_edges_mm, gain_map.y_edges_mm, values, cmap="viridis", shading="flat")
+    fig.colorbar(mesh, ax=ax, label="relative gain")
+    ax.set_aspect("equal")
+    ax.set_xlabel(f"{gain_map.position} x [mm]")
+    ax.set_ylabel(f"{gain_map.position} y [mm]")
+    ax.set_title(f"gain map ({gain_map.n_measured} cells with ≥ {gain_map.min_counts} events)", fontsize=9)
+    return fig
+
+
+def plot_gain_drift(drift, *, ax=None):
+    """Slice peaks (relative to the reference) with errors and the smooth model."""
+    fig, ax = _axes(ax)
+    ref = drift.reference_peak
+    ax.errorbar(drift.slice_time_s, drift.slice_peak / ref, yerr=drift.slice_peak_err / ref, fmt="o", ms=3,
+                color="0.2", label="peak per time slice")
+    ax.plot(drift.node_time_s, drift.node_gain, color="tab:blue", lw=1.4, label=f"{drift.model} model")
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel("relative gain")
+    ax.legend(fontsize=8, frameon=False)
+    return fig
+
+
+def plot_modulation_curve(fit, *, ax=None):
+    """Angle histogram (degrees) with the fitted curve of a :class:`~trackfit.analysis.ModulationFit`."""
+    fig, ax = _axes(ax)
+    edges = fit.edges
+    width = np.diff(edges)
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    ax.errorbar(np.rad2deg(centres), fit.counts, yerr=np.sqrt(fit.variances), xerr=np.rad2deg(width) / 2,
+                fmt="none", ecolor="0.25", lw=0.9, label="data")
+    fine = np.linspace(edges[0], edges[-1], 721)
+    ax.plot(np.rad2deg(fine), fit.density(fine) * width.mean(), color="tab:orange", lw=1.5, label="A + B cos²(φ − φ0)")
+    ax.set_xlim(-180, 180)
+    ax.set_xticks(np.arange(-180, 181, 60))
+    ax.set_xlabel("emission angle φ [deg]")
+    ax.set_ylabel("events per bin" + (" (weighted)" if fit.weighted else ""))
+    ax.text(0.02, 0.03, f"m = {fit.modulation:.4f} ± {fit.modulation_err:.4f}\n"
+            f"φ0 = {np.rad2deg(fit.phase_rad):.1f}° ± {np.rad2deg(fit.phase_err_rad):.1f}°\n"
+            f"χ²/ndof = {fit.chi2:.1f}/{fit.ndof}", transform=ax.transAxes, fontsize=8, family="monospace")
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    return fig
+
+
+def _ellipse(q, u, cov, n_sigma, n=200):
+    values, vectors = np.linalg.eigh(cov)
+    t = np.linspace(0, 2 * np.pi, n)
+    circle = np.stack([np.cos(t), np.sin(t)])
+    points = vectors @ (np.sqrt(np.maximum(values, 0))[:, None] * circle) * n_sigma
+    return q + points[0], u + points[1]
+
+
+def plot_stokes_plane(result, *, ax=None):
+    """Normalized Q/U plane: the estimate, its 1- and 2-sigma ellipses (2-d, 39 % and 86 %), and the MDP99 circle."""
+    fig, ax = _axes(ax, figsize=(5.2, 5.0))
+    cov = np.array([[result.q_err**2, result.qu_cov], [result.qu_cov, result.u_err**2]])
+    for n_sigma, style in ((1, "-"), (2, "--")):
+        x, y = _ellipse(result.q, result.u, cov, n_sigma)
+        ax.plot(x, y, style, color="tab:blue", lw=1.2, label=f"{n_sigma}σ ellipse")
+    t = np.linspace(0, 2 * np.pi, 300)
+    ax.plot(result.mdp99 * np.cos(t), result.mdp99 * np.sin(t), ":", color="tab:red", lw=1.2, label="MDP99")
+    ax.plot([result.q], [result.u], "o", color="tab:blue", ms=4)
+    ax.axhline(0, color="0.7", lw=0.6)
+    ax.axvline(0, color="0.7", lw=0.6)
+    reach = 1.15 * max(result.mdp99, abs(result.q) + 2.5 * result.q_err, abs(result.u) + 2.5 * result.u_err)
+    ax.set_xlim(-reach, reach)
+    ax.set_ylim(-reach, reach)
+    ax.set_aspect("equal")
+    ax.set_xlabel("Q / I (modulation-corrected)")
+    ax.set_ylabel("U / I (modulation-corrected)")
+    ax.set_title(f"p = {100 * result.degree:.2f} ± {100 * result.degree_err:.2f} %, "
+                 f"ψ = {result.angle_deg:.1f} ± {result.angle_err_deg:.1f}°", fontsize=9)
+    ax.legend(fontsize=8, frameon=False, loc="upper right")
+    return fig
+
+
+def plot_modulation_factor(curve, *, ax=None):
+    """Measured modulation factors with errors and the fitted curve."""
+    fig, ax = _axes(ax)
+    ax.errorbar(curve.points_energy_kev, curve.points_value, yerr=curve.points_error, fmt="s", ms=4, color="0.2",
+                label="measured")
+    lo, hi = curve.energy_range_kev
+    span = max(hi - lo, 0.5)
+    fine = np.linspace(max(lo - 0.2 * span, 0.1), hi + 0.2 * span, 300)
+    ax.plot(fine, curve(fine), color="tab:green", lw=1.4, label="curve (clamped outside the points)")
+    ax.set_xlabel("energy [keV]")
+    ax.set_ylabel("modulation factor")
+    ax.set_ylim(0, min(1.0, 1.25 * max(max(curve.points_value), 0.1)))
+    ax.legend(fontsize=8, frameon=False)
+    return fig
+
+
+def plot_spurious_map(spurious, node: int = 0, *, axes=None):
+    """Q_sp and U_sp over the chip at energy node ``node`` (two panels, common symmetric colour scale)."""
+    import matplotlib.pyplot as plt
+
+    if axes is None:
+        fig, axes = plt.subplots(1, 2, figsize=(9.5, 4.2), layout="constrained", sharey=True)
+    fig = axes[0].figure
+    q, u = spurious.q[node], spurious.u[node]
+    limit = np.nanmax(np.abs(np.concatenate([q.ravel(), u.ravel()]))) if np.isfinite(q).any() else 1.0
+    for ax, values, name in ((axes[0], q, "Q_sp"), (axes[1], u, "U_sp")):
+        mesh = ax.pcolormesh(spurious.x_edges_mm, spurious.y_edges_mm, np.ma.masked_invalid(values.T),
+                             cmap="coolwarm", vmin=-limit, vmax=limit, shading="flat")
+        ax.set_aspect("equal")
+        ax.set_xlabel(f"{spurious.position} x [mm]")
+        ax.set_title(f"{name} at {spurious.energy_kev[node]:.2f} keV", fontsize=9)
+    axes[0].set_ylabel(f"{spurious.position} y [mm]")
+    fig.colorbar(mesh, ax=list(axes), label="<cos 2φ>, <sin 2φ> of unpolarized events")
+    return fig
