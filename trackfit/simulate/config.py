@@ -303,10 +303,10 @@ class ReadoutConfig:
         _finite("readout.electrons_per_adc", self.electrons_per_adc, positive=True)
         _finite("readout.trigger_threshold_electrons", self.trigger_threshold_electrons, positive=True)
         _finite("readout.zero_suppression_electrons", self.zero_suppression_electrons, non_negative=True)
-        for name in ("trigger_min_pixels", "roi_margin_pixels"):
+        for name, minimum in (("trigger_min_pixels", 1), ("roi_margin_pixels", 0)):
             value = getattr(self, name)
-            _check(isinstance(value, int) and not isinstance(value, bool) and value >= (1 if name[0] == "t" else 0),
-                   f"readout.{name}", "an integer >= 1" if name[0] == "t" else "an integer >= 0", value)
+            _check(isinstance(value, int) and not isinstance(value, bool) and value >= minimum,
+                   f"readout.{name}", f"an integer >= {minimum}", value)
 
     @property
     def grid(self) -> HexGrid:
