@@ -97,3 +97,12 @@ def test_gain_map_has_requested_rms(hedme):
     assert gain.shape == config.grid.shape
     assert gain.mean() == pytest.approx(1.0, abs=1e-9)
     assert gain.std() == pytest.approx(0.1, rel=1e-6)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("preset, energy_kev", [("hedme-1atm-1cm", 2.7), ("dme-0.8atm-1cm", 8.0),
+                                                ("ardme-3atm-3cm", 25.0)])
+def test_event_kernel_matches_twin_many_events(preset, energy_kev):
+    config = small_chip(load_preset(preset)).with_monochromatic(energy_kev=energy_kev)
+    config = dataclasses.replace(config, source=dataclasses.replace(config.source, field_size_mm=(3.0, 3.0)))
+    _compare(config, 150, seed=6)
