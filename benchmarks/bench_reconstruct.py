@@ -100,11 +100,14 @@ def bare_io(raw_path, table_columns, out_path, batch_size):
     return read, write
 
 
+# VmHWM (peak resident set of this process image), not getrusage's ru_maxrss: Linux carries ru_maxrss over from
+# the parent across fork + exec, so a child of a big benchmark process would report the parent's peak.
 _MEMORY_CHILD = """
-import json, resource, sys
+import json, sys
 from trackfit import reconstruct_file
 reconstruct_file(sys.argv[1], sys.argv[2], progress=False, overwrite=True)
-print(json.dumps({"peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+hwm = [line for line in open("/proc/self/status") if line.startswith("VmHWM:")][0]
+print(json.dumps({"peak_rss_mb": int(hwm.split()[1]) / 1024}))
 """
 
 
@@ -118,6 +121,7 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--events", type=int, default=200_000, help="events of the benchmark file (>= 200000)")
     parser.add_argument("--batch-size", type=int, default=DEFAULT_BATCH_SIZE)
+    parser.add_argument("--repeats", type=int, default=3, help="interleaved repetitions of the pipeline timings")
     parser.add_argument("--no-memory", action="store_true", help="skip the 1e5 / 1e6 event memory check")
     parser.add_argument("--workdir", default=None, help="folder for the temporary files (default: a temp folder)")
     args = parser.parse_args(argv)
@@ -135,6 +139,10 @@ def main(argv=None):
         n_pix = int(batch.start[-1])
 
         # 1. kernel
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(2)
+        prepared = _Prepared(config, batch.grid)
         one, two, reference = bench_kernel(batch, config)
         out_f, out_i = _Prepared(config, batch.grid).run(batch)
         columns = _columns(batch, out_f, out_i)
@@ -147,22 +155,33 @@ def main(argv=None):
         print(f"   numba kernel, 2 threads        {n / two:>11,.0f}   {two / n_pix * 1e9:>10.2f}   "
               f"{reference / two:,.0f}x")
 
-        # 2. pipeline
-        read, write = bare_io(raw, columns, tmp / "bare_out.h5", args.batch_size)
-        bare = read + write
-        timings = {}
+        # 2. pipeline: interleave the runs and keep the best of each, so a burst of load from other work on a
+        # shared machine hits the pipeline and its baselines alike
+        best = {}
+        for _ in range(args.repeats):
+            for key, fn in (
+                ("kernel1", lambda: prepared.run(batch)),
+                ("kernel2", lambda: prepared.run(batch, 2, pool)),
+                ("pipeline1", lambda: reconstruct_file(raw, tmp / "out.h5", config, batch_size=args.batch_size,
+                                                       progress=False, overwrite=True, threads=1)),
+                ("pipeline2", lambda: reconstruct_file(raw, tmp / "out.h5", config, batch_size=args.batch_size,
+                                                       progress=False, overwrite=True, threads=2)),
+            ):
+                best[key] = min(best.get(key, np.inf), best_of(fn, 1))
+            read, write = bare_io(raw, columns, tmp / "bare_out.h5", args.batch_size)
+            if read + write < best.get("bare", np.inf):
+                best["bare"], best["read"], best["write"] = read + write, read, write
+        bare = best["bare"]
+        print("\n2. pipeline (seconds, best of interleaved runs)")
+        print(f"   (a) bare h5py read of the raw arrays {best['read']:.2f} + write of the columns "
+              f"{best['write']:.2f} = {bare:.2f}")
+        print(f"   (b) kernel alone: 1 thread {best['kernel1']:.2f}, 2 threads {best['kernel2']:.2f}")
         for threads in (1, 2):
-            timings[threads] = best_of(lambda th=threads: reconstruct_file(
-                raw, tmp / "out.h5", config, batch_size=args.batch_size, progress=False, overwrite=True,
-                threads=th), 3)
-        print("\n2. pipeline (seconds)")
-        print(f"   (a) bare h5py read of the raw arrays {read:.2f} + write of the columns {write:.2f} = {bare:.2f}")
-        print(f"   (b) kernel alone: 1 thread {one:.2f}, 2 threads {two:.2f}")
-        for threads, kernel in ((1, one), (2, two)):
-            slower = max(bare, kernel)
-            print(f"   reconstruct_file, {threads} kernel thread(s): {timings[threads]:.2f} s = "
-                  f"{timings[threads] / slower:.2f}x max(a, b = {kernel:.2f})   (target <= 1.25x); "
-                  f"{n / timings[threads]:,.0f} events/s")
+            kernel, total = best[f"kernel{threads}"], best[f"pipeline{threads}"]
+            print(f"   reconstruct_file, {threads} kernel thread(s): {total:.2f} s = "
+                  f"{total / max(bare, kernel):.2f}x max(a, b = {kernel:.2f})   (target <= 1.25x); "
+                  f"{n / total:,.0f} events/s")
+        print(f"   load average now {os.getloadavg()[0]:.2f}")
 
         # 3. memory
         if not args.no_memory:

@@ -3,11 +3,10 @@ without a flag."""
 
 import numpy as np
 import pytest
+from recon_helpers import GRID, assert_nan_explained, batch_from_pixels, kernel_columns
 
 from trackfit import EventBatch, HexGrid, ReconConfig, reconstruct
 from trackfit.recon.status import Status
-
-from recon_helpers import GRID, assert_nan_explained, batch_from_pixels, kernel_columns
 
 C, R = 150, 176  # a pixel near the chip centre (row 176 is not shifted on the default chip)
 
@@ -144,7 +143,8 @@ def test_masked_hot_pixel_splits_nothing_else():
 
 def test_largest_charge_wins_and_clusters_are_counted():
     line = {(C + k, R): 30 + 40 * k * k for k in range(8)}
-    blob = {(C + 3, R + 6): 3000, (C + 4, R + 6): 3000}  # 6000 > 5840 ADC of the line: more charge, fewer pixels, not touching the line
+    # more charge (6000 > 5840 ADC of the line), fewer pixels, not touching the line
+    blob = {(C + 3, R + 6): 3000, (C + 4, R + 6): 3000}
     row, _ = _run({**line, **blob})
     assert row["n_clusters"] == 2 and row["n_pixels"] == 2 and row["pulse_height"] == 6000
 

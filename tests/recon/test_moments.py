@@ -5,11 +5,10 @@ symmetric eigensolver; formulas of PHYSICS.md §2, Bellazzini et al. 2003)."""
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from recon_helpers import kernel_columns
 
 from trackfit import EventBatch, HexGrid, ReconConfig, reconstruct
 from trackfit.recon.status import Status
-
-from recon_helpers import kernel_columns
 
 CONFIG = ReconConfig(threshold_adc=0, min_pixels=1)
 
@@ -43,7 +42,8 @@ def test_moments_match_numpy_cov_and_eigh(batch):
     if len(q) == 1:
         assert cols["status"][0] & Status.SINGLE_PIXEL
         return
-    # second moments: eigenvalues of numpy's weighted covariance (bias=True normalises by sum(q), as Mxx = sum q dx^2 / Q)
+    # second moments: eigenvalues of numpy's weighted covariance
+    # (bias=True normalises by sum(q), as Mxx = sum q dx^2 / Q)
     cov = np.cov(np.vstack([x, y]), aweights=q, bias=True)
     eigval, eigvec = np.linalg.eigh(cov)
     scale = eigval.sum()

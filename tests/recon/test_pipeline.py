@@ -4,13 +4,12 @@ streaming with threads, nothing half-written on failure."""
 import h5py
 import numpy as np
 import pytest
+from recon_helpers import assert_nan_explained
 
-from trackfit import EventBatch, ReconConfig, RawEventWriter, read_table, reconstruct, reconstruct_file
+from trackfit import EventBatch, RawEventWriter, ReconConfig, read_table, reconstruct, reconstruct_file
 from trackfit.recon import TABLE_COLUMNS, content_fingerprint
 from trackfit.recon._synthetic import toy_tracks
 from trackfit.recon.status import Status
-
-from recon_helpers import assert_nan_explained
 
 ISSUE_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters", "pulse_height", "energy_kev",
                  "bary_x_mm", "bary_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad", "mom2_long",

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from recon_helpers import kernel_columns
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
@@ -13,8 +14,6 @@ from trackfit import EventBatch, HexGrid, ReconConfig
 from trackfit.recon._kernels import FLOAT_COLUMNS, INT_COLUMNS
 from trackfit.recon._reference import reconstruct_batch_reference
 from trackfit.recon._synthetic import toy_tracks
-
-from recon_helpers import kernel_columns
 
 
 def assert_same(kernel, reference, atol=1e-9):

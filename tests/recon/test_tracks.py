@@ -6,12 +6,11 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from recon_helpers import angle_diff, batch_from_pixels, invert, kernel_columns, pixels_of, rotate60, transform_pixels
 
 from trackfit import ReconConfig, reconstruct
 from trackfit.recon._synthetic import toy_tracks
 from trackfit.recon.status import Status
-
-from recon_helpers import angle_diff, batch_from_pixels, invert, kernel_columns, pixels_of, rotate60, transform_pixels
 
 
 @pytest.fixture(scope="module")

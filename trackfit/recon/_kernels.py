@@ -120,6 +120,9 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         nr = roi[i, 3]
         area = start[i + 1] - s0
         status = 0
+        # row of ROI pixel k = floor((k + 0.5) / nc), by multiplication: exact for areas below ~1e9 pixels and
+        # much cheaper than an integer division in the inner loops
+        inv_nc = 1.0 / nc if nc > 0 else 0.0
         for k in range(out_f.shape[1]):
             out_f[i, k] = nan
         out_f[i, _F_PH] = 0.0
@@ -128,7 +131,8 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         out_i[i, _I_NCLUS] = 0
         out_i[i, _I_PEAK] = 0
         out_i[i, _I_NCONV] = 0
-        if bad[i]:
+        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or (use_mask and (
+                c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > mask.size)):
             out_i[i, _I_STATUS] = _MALFORMED
             continue
 
@@ -141,7 +145,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             kept = 0
             for j in range(n_hit):
                 k = hits[j]
-                rr = k // nc
+                rr = int((k + 0.5) * inv_nc)
                 if mask[(r0 + rr) * mask_columns + c0 + k - rr * nc] == 0:
                     hits[kept] = k
                     kept += 1
@@ -169,7 +173,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
                 top -= 1
                 p = stack[top]
                 charge += signal[s0 + p]
-                rr = p // nc
+                rr = int((p + 0.5) * inv_nc)
                 cc = p - rr * nc
                 if cc > 0 and label[p - 1] == 0:
                     label[p - 1] = n_clusters
@@ -207,7 +211,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         for j in range(n_hit):
             k = hits[j]
             if label[k] == best:
-                rr = k // nc
+                rr = int((k + 0.5) * inv_nc)
                 cc = k - rr * nc
                 v = signal[s0 + k]
                 shifted = 0.5 if ((r0 + rr) & 1) == parity else 0.0

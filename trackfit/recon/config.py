@@ -134,7 +134,8 @@ class ReconConfig:
                 raise ValueError("'bad_pixels' must be a list of (column, row) integer pairs or a chip-sized "
                                  f"boolean array indexed [row, column] (got shape {arr.shape}, dtype {arr.dtype})")
             if (arr < 0).any():
-                raise ValueError(f"'bad_pixels' must hold non-negative (column, row) pairs (got {arr[arr.min(1) < 0][0].tolist()})")
+                first = arr[arr.min(axis=1) < 0][0].tolist()
+                raise ValueError(f"'bad_pixels' must hold non-negative (column, row) pairs (got {first})")
             pairs = arr
         pairs = np.unique(pairs.astype(np.int64), axis=0) if len(pairs) else pairs
         # sort by row, then column (the order of pixels on the chip)
