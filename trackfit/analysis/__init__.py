@@ -21,6 +21,7 @@ What to use when
 * Figures: :mod:`trackfit.analysis.figures` (matplotlib, imported lazily).
 """
 
+from . import figures  # noqa: F401  (matplotlib itself is imported inside the functions)
 from .calfile import CALIBRATION_FORMAT_VERSION, Calibration, CalibrationFormatError
 from .gainmap import GainMap, fit_gain_map
 from .gaintime import GainDrift, fit_gain_drift
