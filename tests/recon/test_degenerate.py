@@ -186,6 +186,15 @@ def test_malformed_placeholders_get_bit_0():
     assert_nan_explained(table)
 
 
+def test_inconsistent_roi_in_an_unvalidated_batch_is_flagged_not_read():
+    # EventBatch(validate=False) trusts its caller; the kernel still never reads outside an event's pixels
+    batch = EventBatch(roi=[[10, 10, 3, 3], [10, 10, 4, 4], [299, 10, 5, 1]], start=[0, 9, 18, 23],
+                       signal=np.full(23, 100), validate=False)
+    table = reconstruct(batch, ReconConfig(bad_pixels=[(0, 0)]))
+    assert list(table["status"] & Status.MALFORMED_INPUT) == [0, 1, 1]  # area 16 != 9 pixels; ROI off the chip
+    assert_nan_explained(table)
+
+
 @pytest.mark.parametrize("shifted", ["odd", "even"])
 def test_degenerate_mix_on_both_row_parities(shifted, make_batch):
     grid = HexGrid(n_columns=64, n_rows=48, shifted_rows=shifted)

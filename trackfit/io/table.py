@@ -169,6 +169,11 @@ class EventTable(Mapping):
     def __contains__(self, name) -> bool:
         return name in self._data
 
+    # Mapping's __eq__ would compare arrays element-wise and fail; tables compare by identity (use
+    # numpy.array_equal on the columns to compare contents)
+    __eq__ = object.__eq__
+    __hash__ = object.__hash__
+
     @property
     def columns(self) -> list[str]:
         """Column names, in order."""
