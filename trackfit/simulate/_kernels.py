@@ -66,6 +66,18 @@ def _rotate(ux, uy, uz, cos_chi, phi):
 
 
 @jit
+def _put_segment(seg, k, x0, y0, z0, x1, y1, z1, energy_kev):
+    """Row ``k`` of the segment buffer: a straight piece of track and the energy deposited along it."""
+    seg[k, 0] = x0
+    seg[k, 1] = y0
+    seg[k, 2] = z0
+    seg[k, 3] = x1
+    seg[k, 4] = y1
+    seg[k, 5] = z1
+    seg[k, 6] = energy_kev
+
+
+@jit
 def transport_electron(rng, x, y, z, ux, uy, uz, energy_kev, gap_mm, atom_z, atom_density_cm3, rho_z_over_a,
                        mean_excitation_kev, seg, n_seg):
     """Follow one electron (condensed history with single elastic scattering) and record energy deposits.
@@ -118,13 +130,7 @@ def transport_electron(rng, x, y, z, ux, uy, uz, energy_kev, gap_mm, atom_z, ato
             left = True
         nx = x + ux * s_mm
         ny = y + uy * s_mm
-        seg[n_seg, 0] = x
-        seg[n_seg, 1] = y
-        seg[n_seg, 2] = z
-        seg[n_seg, 3] = nx
-        seg[n_seg, 4] = ny
-        seg[n_seg, 5] = nz
-        seg[n_seg, 6] = loss
+        _put_segment(seg, n_seg, x, y, z, nx, ny, nz, loss)
         n_seg += 1
         path += s_mm
         x, y, z = nx, ny, nz
@@ -146,13 +152,7 @@ def transport_electron(rng, x, y, z, ux, uy, uz, energy_kev, gap_mm, atom_z, ato
         phi = 2.0 * math.pi * rng.random()
         ux, uy, uz = _rotate(ux, uy, uz, cos_chi, phi)
     # what is left is deposited where the electron stops
-    seg[n_seg, 0] = x
-    seg[n_seg, 1] = y
-    seg[n_seg, 2] = z
-    seg[n_seg, 3] = x
-    seg[n_seg, 4] = y
-    seg[n_seg, 5] = z
-    seg[n_seg, 6] = e
+    _put_segment(seg, n_seg, x, y, z, x, y, z, e)
     return n_seg + 1, path
 
 
@@ -218,13 +218,7 @@ def simulate_events(rng, x0_mm, y0_mm, z0_mm, pe_dir, pe_kev, auger_dir, auger_k
     pos = 0
     for i in range(n):
         # --- energy deposits: local (binding energy not carried away), photoelectron, Auger electron
-        seg[0, 0] = x0_mm[i]
-        seg[0, 1] = y0_mm[i]
-        seg[0, 2] = z0_mm[i]
-        seg[0, 3] = x0_mm[i]
-        seg[0, 4] = y0_mm[i]
-        seg[0, 5] = z0_mm[i]
-        seg[0, 6] = local_kev[i]
+        _put_segment(seg, 0, x0_mm[i], y0_mm[i], z0_mm[i], x0_mm[i], y0_mm[i], z0_mm[i], local_kev[i])
         n_seg = 1
         if pe_kev[i] > 0:
             n_seg, path = transport_electron(rng, x0_mm[i], y0_mm[i], z0_mm[i], pe_dir[i, 0], pe_dir[i, 1],
