@@ -174,7 +174,12 @@ class ReconConfig:
     @classmethod
     def from_dict(cls, values: dict, *, source: str = "config") -> ReconConfig:
         """Build from a dict (e.g. parsed TOML); unknown keys are rejected with the list of valid ones."""
-        if "recon" in values and isinstance(values["recon"], dict) and len(values) == 1:
+        if "recon" in values and isinstance(values["recon"], dict):
+            # a settings file (trackfit.tuning) also holds the [selection] table, read by the analysis
+            others = sorted(set(values) - {"recon", "selection"})
+            if others:
+                raise ValueError(f"{source}: unknown key(s) {others} beside the [recon] table; "
+                                 "expected only [recon] and [selection]")
             values = values["recon"]
         unknown = sorted(set(values) - set(cls.field_names()))
         if unknown:
