@@ -48,19 +48,7 @@ def _compare(config, n, seed):
     twin_rng = np.random.default_rng()
     twin_rng.bit_generator.state = state
     expected = _reference.simulate_events(twin_rng, photons, gain_factor, sim.mixture, config, sim.pixel_gain)
-    grid = config.grid
-    z, n_atoms, rho_z_over_a, mean_excitation = sim.consts
-    ro, mult = config.readout, config.multiplier
-    triggered, roi, n_signal, signal, path, n_ion = _kernels.simulate_events(
-        sim.rng, photons.x_mm, photons.y_mm, photons.height_mm, photons.photoelectron_dir,
-        photons.photoelectron_kev, photons.auger_dir, photons.auger_kev, photons.local_kev, gain_factor,
-        config.gas.gap_cm * 10.0, z, n_atoms, rho_z_over_a, mean_excitation, config.gas.w_value_ev / 1000.0,
-        config.gas.fano_factor, config.drift.diffusion_um_per_sqrt_cm * 1e-3 / np.sqrt(10.0),
-        mult.transfer_spread_um * 1e-3, mult.gain, mult.polya_theta, sim._pixel_gain_flat, grid.n_columns,
-        grid.n_rows, -grid.extent_mm[0], -grid.extent_mm[2], grid.pitch_mm, grid.row_pitch_mm,
-        0 if grid.shifted_rows == "odd" else 1, ro.noise_electrons, ro.electrons_per_adc,
-        ro.trigger_threshold_electrons, ro.trigger_min_pixels, ro.roi_margin_pixels, ro.zero_suppression_electrons,
-        sim.seg, sim.count, sim.charge, sim.touched, np.zeros(16, np.int16))
+    triggered, roi, n_signal, signal, path, n_ion = sim.events(photons, gain_factor)
     offsets = np.concatenate([[0], np.cumsum(n_signal)])
     for i, ref in enumerate(expected):
         assert triggered[i] == ref["triggered"], i

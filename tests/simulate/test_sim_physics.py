@@ -119,22 +119,24 @@ def test_kernel_diffusion_width(height_mm):
 
     from trackfit.simulate import load_preset
     from trackfit.simulate.engine import _Simulator
+    from trackfit.simulate.photons import PhotonBatch
 
     config = small_chip(load_preset("hedme-1atm-1cm"), noise_electrons=0.0, trigger_threshold_electrons=1.0,
                         roi_margin_pixels=0, electrons_per_adc=1.0)
     config = dataclasses.replace(config, multiplier=dataclasses.replace(config.multiplier, gain=20.0,
-                                                                        polya_theta=1e6, transfer_spread_um=0.0))
+                                                                        polya_theta=1e6, transfer_spread_um=0.0),
+                                 drift=dataclasses.replace(config.drift, diffusion_um_per_sqrt_cm=90.0),
+                                 gas=dataclasses.replace(config.gas, w_value_ev=24.0))
     sim = _Simulator(config, np.random.default_rng(9))
     grid = config.grid
     n_events, deposit_kev = 40, 60.0
-    z, n_atoms, rho_z_over_a, mean_excitation = sim.consts
-    zeros = np.zeros(n_events)
-    triggered, roi, n_signal, signal, _, n_ion = _kernels.simulate_events(
-        sim.rng, zeros, zeros, np.full(n_events, height_mm), np.zeros((n_events, 3)), zeros, np.zeros((n_events, 3)),
-        zeros, np.full(n_events, deposit_kev), np.ones(n_events), 10.0, z, n_atoms, rho_z_over_a, mean_excitation,
-        0.024, 0.2, 90.0 * 1e-3 / np.sqrt(10.0), 0.0, 20.0, 1e6, sim._pixel_gain_flat, grid.n_columns, grid.n_rows,
-        -grid.extent_mm[0], -grid.extent_mm[2], grid.pitch_mm, grid.row_pitch_mm, 0, 0.0, 1.0, 1.0, 1, 0, 0.0,
-        sim.seg, sim.count, sim.charge, sim.touched, np.zeros(16, np.int16))
+    zeros, no_direction = np.zeros(n_events), np.zeros((n_events, 3))
+    point_deposits = PhotonBatch(
+        energy_kev=zeros, x_mm=zeros, y_mm=zeros, height_mm=np.full(n_events, height_mm), atomic_number=zeros,
+        shell=zeros, photoelectron_kev=zeros, azimuth_rad=zeros, polar_rad=zeros, photoelectron_dir=no_direction,
+        auger_kev=zeros, auger_dir=no_direction, fluorescence_kev=zeros, local_kev=np.full(n_events, deposit_kev),
+        time_s=zeros)
+    triggered, roi, n_signal, signal, _, n_ion = sim.events(point_deposits, np.ones(n_events))
     assert triggered.all()
     offsets = np.concatenate([[0], np.cumsum(n_signal)])
     var_x, var_y = [], []

@@ -163,6 +163,24 @@ class _Simulator:
         self.touched = np.zeros(grid.n_pixels, dtype=np.int64)      # pixels hit by the current event
         self.signal = np.zeros(1 << 20, dtype=np.int16)
 
+    def events(self, p, gain_factor):
+        """Run the event kernel on a :class:`~trackfit.simulate.photons.PhotonBatch` (see its Returns)."""
+        config, grid = self.config, self.grid
+        drift, mult, ro = config.drift, config.multiplier, config.readout
+        z, n_atoms, rho_z_over_a, mean_excitation = self.consts
+        out = _kernels.simulate_events(
+            self.rng, p.x_mm, p.y_mm, p.height_mm, p.photoelectron_dir, p.photoelectron_kev, p.auger_dir,
+            p.auger_kev, p.local_kev, gain_factor, config.gas.gap_cm * 10.0, z, n_atoms, rho_z_over_a,
+            mean_excitation, config.gas.w_value_ev / 1000.0, config.gas.fano_factor,
+            drift.diffusion_um_per_sqrt_cm * 1e-3 / np.sqrt(10.0), mult.transfer_spread_um * 1e-3,
+            mult.gain, mult.polya_theta, self._pixel_gain_flat, grid.n_columns, grid.n_rows,
+            -grid.extent_mm[0], -grid.extent_mm[2], grid.pitch_mm, grid.row_pitch_mm,
+            0 if grid.shifted_rows == "odd" else 1, ro.noise_electrons, ro.electrons_per_adc,
+            ro.trigger_threshold_electrons, ro.trigger_min_pixels, ro.roi_margin_pixels, ro.zero_suppression_electrons,
+            self.seg, self.count, self.charge, self.touched, self.signal)
+        self.signal = out[3]                      # keep the (possibly enlarged) buffer for the next call
+        return out
+
     def chunk(self, n: int, first_trigger_id: int = 0):
         config, grid = self.config, self.grid
         p = self.photons.sample(n, self.rng)
@@ -170,22 +188,7 @@ class _Simulator:
         ix, iy = grid.nearest_pixel(p.x_mm, p.y_mm)
         inside = grid.contains(ix, iy)
         map_at = np.where(inside, self._pixel_gain_flat[np.where(inside, iy * grid.n_columns + ix, 0)], 1.0)
-        drift = config.drift
-        mult = config.multiplier
-        ro = config.readout
-        z, n_atoms, rho_z_over_a, mean_excitation = self.consts
-        x0, y0 = -grid.extent_mm[0], -grid.extent_mm[2]
-        unshifted = 0 if grid.shifted_rows == "odd" else 1
-        triggered, roi, n_signal, signal, path_mm, n_ion = _kernels.simulate_events(
-            self.rng, p.x_mm, p.y_mm, p.height_mm, p.photoelectron_dir, p.photoelectron_kev, p.auger_dir,
-            p.auger_kev, p.local_kev, gain_factor, config.gas.gap_cm * 10.0, z, n_atoms, rho_z_over_a,
-            mean_excitation, config.gas.w_value_ev / 1000.0, config.gas.fano_factor,
-            drift.diffusion_um_per_sqrt_cm * 1e-3 / np.sqrt(10.0), mult.transfer_spread_um * 1e-3,
-            mult.gain, mult.polya_theta, self._pixel_gain_flat, grid.n_columns, grid.n_rows, x0, y0,
-            grid.pitch_mm, grid.row_pitch_mm, unshifted, ro.noise_electrons, ro.electrons_per_adc,
-            ro.trigger_threshold_electrons, ro.trigger_min_pixels, ro.roi_margin_pixels, ro.zero_suppression_electrons,
-            self.seg, self.count, self.charge, self.touched, self.signal)
-        self.signal = signal
+        triggered, roi, n_signal, signal, path_mm, n_ion = self.events(p, gain_factor)
         truth = {
             "photon_energy_kev": p.energy_kev,
             "conversion_x_mm": p.x_mm,
