@@ -151,3 +151,10 @@ def test_bad_arguments():
     with pytest.raises(ValueError, match="'n_events' must be an integer >= 0"):
         run(SimConfig(), -1)
     assert len(run(SimConfig(), 0, rng=1).batch) == 0
+
+
+def test_result_summaries(hedme_6kev_pencil):
+    result = run(hedme_6kev_pencil, 20, rng=33)
+    assert "20 events written" in repr(result) and "seed=33" in repr(result)
+    html = result._repr_html_()
+    assert "<table>" in html and "He/C2H6O 0.2/0.8, 1 atm, 1 cm" in html

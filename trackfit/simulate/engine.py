@@ -135,6 +135,23 @@ class SimResult:
                 writer.add_array("simulation/pixel_gain", self.pixel_gain.astype(np.float32))
         return Path(path)
 
+    def _summary(self) -> list[tuple[str, str]]:
+        c = self.config
+        return [
+            ("events written", f"{len(self.batch)}"),
+            ("photons converted", f"{self.n_converted} ({self.n_not_triggered} did not trigger)"),
+            ("detection efficiency", f"{self.detection_efficiency:.4f} (window x gap)"),
+            ("gas", f"{'/'.join(c.gas.molecules)} {'/'.join(f'{f:g}' for f in c.gas.fractions)}, "
+                    f"{c.gas.pressure_atm:g} atm, {c.gas.gap_cm:g} cm"),
+            ("source", f"{c.source.spectrum} {c.source.energy_range_kev[0]:g}-{c.source.energy_range_kev[1]:g} keV, "
+                       f"P = {c.source.polarization_degree:g} at {c.source.polarization_angle_deg:g} deg"),
+            ("seed", f"{self.seed}"),
+        ]
+
+    def _repr_html_(self):
+        rows = "".join(f"<tr><th style='text-align:left'>{k}</th><td>{v}</td></tr>" for k, v in self._summary())
+        return f"<table><caption>SimResult</caption>{rows}</table>"
+
     def __repr__(self):
         c = self.config
         return (f"SimResult({len(self.batch)} events written, {self.n_converted} photons converted, "
