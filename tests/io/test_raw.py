@@ -110,6 +110,20 @@ def test_header_run_info_and_single_events(small_raw_file):
         assert np.array_equal(truth["shell"], batch.truth["shell"][10:20])
 
 
+def test_run_info_values(tmp_path, make_batch):
+    batch = make_batch(3, 2)
+    info = {"source": "Fe-55 line source", "voltages_v": [350.0, 520.5], "shells": ["K", "L1", "L2"], "n": 3,
+            "notes": "line one\nline two"}
+    path = write_raw(tmp_path / "info.h5", batch, run_info=info)
+    with open_raw(path) as reader:
+        got = reader.run_info
+    assert got["shells"] == ["K", "L1", "L2"] and got["source"] == info["source"] and got["n"] == 3
+    assert np.array_equal(got["voltages_v"], info["voltages_v"]) and got["notes"] == info["notes"]
+    with pytest.raises(TypeError, match="store structured information as TOML or JSON text"):
+        write_raw(tmp_path / "bad.h5", batch, run_info={"nested": {"a": 1}})
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["info.h5"]  # no partial file left behind
+
+
 def test_prefetch_gives_the_same_batches(small_raw_file):
     path, batch = small_raw_file
     with open_raw(path) as reader:

@@ -7,8 +7,6 @@ temporary name and renamed when closed, so an interrupted run never leaves a fil
 
 from __future__ import annotations
 
-import datetime as _dt
-import os
 import queue
 import threading
 from pathlib import Path
@@ -16,9 +14,9 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from .. import __version__
 from ..events import Event, EventBatch, find_bad_events
 from ..hexgrid import HexGrid
+from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 
 __all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION"]
@@ -53,18 +51,16 @@ class RawFormatError(ValueError):
         super().__init__(f"{', '.join(where)}: {message}")
 
 
-def _now_utc() -> str:
-    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
 def _attr_value(value):
     """Convert a run-info value to something HDF5 can store as an attribute."""
     if isinstance(value, str | bytes | bool | int | float | np.generic):
         return value
     if isinstance(value, list | tuple | np.ndarray):
         arr = np.asarray(value)
-        if arr.dtype.kind in "biuf" or arr.dtype.kind == "U":
-            return arr.astype(str) if arr.dtype.kind == "U" else arr
+        if arr.ndim == 1 and arr.dtype.kind in "biuf":
+            return arr
+        if arr.ndim == 1 and arr.dtype.kind == "U":  # variable-length UTF-8 strings
+            return arr.astype(object).astype(h5py.string_dtype())
     raise TypeError(
         f"run information values must be str, numbers or 1-D arrays of them (got {type(value).__name__}); "
         "store structured information as TOML or JSON text"
@@ -81,7 +77,7 @@ def _decode(value):
     return value
 
 
-class RawEventWriter:
+class RawEventWriter(PartialFileWriter):
     """Write a raw event file (format version 1) batch by batch.
 
     Parameters
@@ -91,7 +87,7 @@ class RawEventWriter:
     grid : HexGrid
         The chip geometry; every appended batch must use it.
     compression : str
-        ``"lzf"`` (default, see ``docs/raw-format.md`` for the measurement behind it), ``"gzip"``, ``"none"``,
+        ``"none"`` (default, see ``docs/raw-format.md`` for the measurement behind it), ``"lzf"``, ``"gzip"``,
         or, when the optional ``hdf5plugin`` package is installed, ``"blosc-lz4"`` or ``"zstd"``.
     run_info : dict, optional
         Attributes of the ``/run`` group (source, gas, pressure, voltages, free text, ...).
@@ -111,64 +107,46 @@ class RawEventWriter:
     ...     writer.append(batch)
     """
 
+    format_name = FORMAT_NAME
+    format_version = FORMAT_VERSION
+
     def __init__(self, path, grid: HexGrid, *, compression: str = DEFAULT_COMPRESSION, run_info=None,
                  created_by=None, created_utc=None, chunk_events: int = 16_384, chunk_pixels: int = 262_144,
                  overwrite=False):
-        self.path = Path(path)
-        if self.path.exists() and not overwrite:
-            raise FileExistsError(f"'{self.path}' exists; pass overwrite=True to replace it")
         if not isinstance(grid, HexGrid):
             raise TypeError(f"'grid' must be a HexGrid (got {type(grid).__name__})")
+        self._filters = dataset_filter_options(compression)
+        f = self._open(path, overwrite=overwrite, created_by=created_by, created_utc=created_utc)
         self.grid = grid
         self.compression = compression
-        self._filters = dataset_filter_options(compression)
-        self._partial = self.path.with_name(self.path.name + ".partial")
-        self._file = h5py.File(self._partial, "w")
         self._n_events = 0
         self._n_signal = 0
         self._truth_keys = None
-        f = self._file
-        f.attrs["trackfit_format"] = FORMAT_NAME
-        f.attrs["format_version"] = FORMAT_VERSION
-        f.attrs["created_by"] = created_by or f"trackfit {__version__}"
-        f.attrs["created_utc"] = created_utc or _now_utc()
-        geometry = f.create_group("geometry")
-        for key, value in grid.to_dict().items():
-            geometry.attrs[key] = value
-        run = f.create_group("run")
-        for key, value in (run_info or {}).items():
-            run.attrs[key] = _attr_value(value)
-        events = f.create_group("events")
-        self._chunk_events = int(chunk_events)
-        for name, (dtype, tail) in EVENT_DATASETS.items():
-            chunk = chunk_pixels if name == "signal" else chunk_events
-            events.create_dataset(name, shape=(0, *tail), maxshape=(None, *tail), dtype=dtype,
-                                  chunks=(chunk, *tail), **self._filters)
-        events["start"].resize((1,))
-        events["start"][0] = 0
-
-    # ------------------------------------------------------------------
-    def __enter__(self):
-        return self
-
-    def __exit__(self, exc_type, exc, tb):
-        if exc_type is None:
-            self.close()
-        else:
+        try:
+            geometry = f.create_group("geometry")
+            for key, value in grid.to_dict().items():
+                geometry.attrs[key] = value
+            run = f.create_group("run")
+            for key, value in (run_info or {}).items():
+                run.attrs[key] = _attr_value(value)
+            events = f.create_group("events")
+            self._chunk_events = int(chunk_events)
+            for name, (dtype, tail) in EVENT_DATASETS.items():
+                chunk = chunk_pixels if name == "signal" else chunk_events
+                events.create_dataset(name, shape=(0, *tail), maxshape=(None, *tail), dtype=dtype,
+                                      chunks=(chunk, *tail), **self._filters)
+            events["start"].resize((1,))
+            events["start"][0] = 0
+        except BaseException:
             self.abort()
-        return False
+            raise
 
     def __len__(self):
         return self._n_events
 
-    def _append(self, dataset, values):
-        n = dataset.shape[0]
-        dataset.resize((n + len(values), *dataset.shape[1:]))
-        dataset[n:] = values
-
     def append(self, batch: EventBatch) -> None:
         """Append the events of a batch (its truth columns go to ``/truth``)."""
-        if self._file is None:
+        if self.closed:
             raise ValueError(f"writer for '{self.path}' is closed")
         if batch.grid != self.grid:
             raise ValueError(f"batch geometry {batch.grid} differs from the file's {self.grid}")
@@ -187,13 +165,13 @@ class RawEventWriter:
             return
         batch = batch.compact()
         events = self._file["events"]
-        self._append(events["roi"], batch.roi)
-        self._append(events["start"], batch.start[1:] + self._n_signal)
-        self._append(events["signal"], batch.signal)
-        self._append(events["time_s"], batch.time_s)
-        self._append(events["trigger_id"], batch.trigger_id)
+        append_rows(events["roi"], batch.roi)
+        append_rows(events["start"], batch.start[1:] + self._n_signal)
+        append_rows(events["signal"], batch.signal)
+        append_rows(events["time_s"], batch.time_s)
+        append_rows(events["trigger_id"], batch.trigger_id)
         for key in keys:
-            self._append(self._file["truth"][key], batch.truth[key])
+            append_rows(self._file["truth"][key], batch.truth[key])
         self._n_events += len(batch)
         self._n_signal += len(batch.signal)
 
@@ -202,7 +180,7 @@ class RawEventWriter:
 
         Readers of format v1 ignore it; ``name`` must not lie in ``/events``, ``/geometry``, ``/run`` or ``/truth``.
         """
-        if self._file is None:
+        if self.closed:
             raise ValueError(f"writer for '{self.path}' is closed")
         top = name.strip("/").split("/")[0]
         if top in ("events", "geometry", "run", "truth"):
@@ -215,22 +193,6 @@ class RawEventWriter:
         """Add or replace attributes of ``/run`` (e.g. counters known only at the end)."""
         for key, value in values.items():
             self._file["run"].attrs[key] = _attr_value(value)
-
-    def close(self) -> Path:
-        """Finish the file and give it its final name; returns the path."""
-        if self._file is None:
-            return self.path
-        self._file.close()
-        self._file = None
-        os.replace(self._partial, self.path)
-        return self.path
-
-    def abort(self) -> None:
-        """Close and delete the partial file."""
-        if self._file is not None:
-            self._file.close()
-            self._file = None
-        self._partial.unlink(missing_ok=True)
 
 
 def write_raw(path, batch: EventBatch, **options) -> Path:
