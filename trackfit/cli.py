@@ -12,7 +12,7 @@ import sys
 
 # Before committing in a shared working tree, read DEVELOPERS.md ("Working on a shared tree").
 #: subcommand modules, in the order ``trackfit --help`` lists them
-COMMAND_MODULES = ("info", "show", "simulate", "reconstruct")
+COMMAND_MODULES = ("info", "show", "simulate", "reconstruct", "calibrate", "polarization")
 
 
 class CommandError(Exception):

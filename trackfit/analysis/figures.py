@@ -94,9 +94,9 @@ def plot_modulation_curve(fit, *, ax=None):
     ax.set_xticks(np.arange(-180, 181, 60))
     ax.set_xlabel("emission angle φ [deg]")
     ax.set_ylabel("events per bin" + (" (weighted)" if fit.weighted else ""))
-    ax.text(0.02, 0.03, f"m = {fit.modulation:.4f} ± {fit.modulation_err:.4f}\n"
-            f"φ0 = {np.rad2deg(fit.phase_rad):.1f}° ± {np.rad2deg(fit.phase_err_rad):.1f}°\n"
-            f"χ²/ndof = {fit.chi2:.1f}/{fit.ndof}", transform=ax.transAxes, fontsize=8, family="monospace")
+    ax.set_title(f"m = {fit.modulation:.4f} ± {fit.modulation_err:.4f},  "
+                 f"φ0 = {np.rad2deg(fit.phase_rad):.1f}° ± {np.rad2deg(fit.phase_err_rad):.1f}°,  "
+                 f"χ²/ndof = {fit.chi2:.1f}/{fit.ndof}", fontsize=9)
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     return fig
 

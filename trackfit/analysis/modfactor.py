@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .stokes import stokes_parameters
+from .stokes import StokesResult, stokes_sums
 
 __all__ = ["ModulationFactorPoint", "ModulationFactorCurve", "measure_modulation_factor",
            "fit_modulation_factor_curve"]
@@ -42,7 +42,7 @@ class ModulationFactorPoint:
 
 def measure_modulation_factor(angles_rad, energy_kev, *, polarization_degree: float = 1.0,
                               polarization_angle_rad: float | None = None, weights=None,
-                              spurious_q=None, spurious_u=None) -> ModulationFactorPoint:
+                              spurious_q=None, spurious_u=None, extra_variance=(0.0, 0.0)) -> ModulationFactorPoint:
     """Modulation factor of one polarized run: the measured modulation divided by the beam's degree.
 
     With a known polarization angle the modulation is the projection ``Q cos 2psi + U sin 2psi`` (unbiased);
@@ -58,13 +58,16 @@ def measure_modulation_factor(angles_rad, energy_kev, *, polarization_degree: fl
         Angle of the beam in the detector frame.
     weights, spurious_q, spurious_u : array_like, optional
         As in :func:`trackfit.analysis.stokes_parameters`.
+    extra_variance : (float, float)
+        Variance of the Q and U sums from other sources than counting, e.g. the errors of a subtracted spurious
+        map (:meth:`trackfit.analysis.SpuriousMap.sum_variance` with coefficients ``2 w``).
     """
     if not 0 < polarization_degree <= 1:
         raise ValueError(f"'polarization_degree' must be in (0, 1] (got {polarization_degree!r})")
     phi = np.asarray(angles_rad, dtype=float)
     energy = np.asarray(energy_kev, dtype=float)
-    result = stokes_parameters(phi, modulation_factor=1.0, weights=weights, spurious_q=spurious_q,
-                               spurious_u=spurious_u, confidence_level=None)
+    sums = stokes_sums(phi, modulation_factor=1.0, weights=weights, spurious_q=spurious_q, spurious_u=spurious_u)
+    result = StokesResult.from_sums(sums.with_extra_variance(*extra_variance), confidence_level=None)
     if polarization_angle_rad is None:
         value, error = result.degree, result.degree_err
     else:

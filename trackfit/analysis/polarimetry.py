@@ -91,6 +91,20 @@ def _prepared(table, calibration, selection, use_gain_drift):
     return select_rows(columns, mask), flow
 
 
+def _sums(events, calibration, modulation_factor, weighting):
+    mu, weights, spurious = _corrections(events, calibration, modulation_factor, weighting)
+    sums = stokes_sums(events["emission_rad"], modulation_factor=mu, weights=weights, **spurious)
+    if spurious:  # the subtracted map has statistical errors shared by all events of a cell
+        spurious_map = calibration.spurious_modulation
+        xc, yc = spurious_map.columns
+        w = np.ones(len(events["emission_rad"])) if weights is None else weights
+        phi = np.asarray(events["emission_rad"], dtype=float)
+        coefficients = np.where(np.isfinite(phi), 2.0 * w / np.asarray(mu, dtype=float), np.nan)
+        sums = sums.with_extra_variance(*spurious_map.sum_variance(events["energy_kev"], events[xc], events[yc],
+                                                                   coefficients))
+    return sums, mu, weights, spurious
+
+
 def _corrections(events, calibration, modulation_factor, weighting):
     if modulation_factor is not None:
         mu = modulation_factor
@@ -121,7 +135,8 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Source events (default: all).
     calibration : Calibration, optional
         Applied before the selection (so energy cuts use calibrated energies); its modulation-factor curve
-        and spurious map are used per event.
+        and spurious map are used per event, and the statistical errors of the spurious map are added to the
+        errors of the Stokes parameters (events of one cell share the map's error).
     modulation_factor : float, optional
         One modulation factor for all events (overrides the calibration's curve).
     weighting : {"none", "ellipticity"} or array_like
@@ -140,8 +155,7 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
     """
     selection = selection if selection is not None else Everything()
     events, flow = _prepared(table, calibration, selection, use_gain_drift)
-    mu, weights, spurious = _corrections(events, calibration, modulation_factor, weighting)
-    sums = stokes_sums(events["emission_rad"], modulation_factor=mu, weights=weights, **spurious)
+    sums, mu, weights, spurious = _sums(events, calibration, modulation_factor, weighting)
     background_flow = None
     if background_selection is not None or background_table is not None:
         if background_scale is None:
@@ -149,8 +163,7 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         off_table = background_table if background_table is not None else table
         off_selection = background_selection if background_selection is not None else Everything()
         off_events, background_flow = _prepared(off_table, calibration, off_selection, use_gain_drift)
-        off_mu, off_w, off_spurious = _corrections(off_events, calibration, modulation_factor, weighting)
-        off_sums = stokes_sums(off_events["emission_rad"], modulation_factor=off_mu, weights=off_w, **off_spurious)
+        off_sums = _sums(off_events, calibration, modulation_factor, weighting)[0]
         sums = sums.subtract(off_sums, background_scale)
     result = StokesResult.from_sums(sums, confidence_level=confidence_level)
     bands = None

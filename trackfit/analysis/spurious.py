@@ -111,6 +111,38 @@ class SpuriousMap:
         bad = ~(np.isfinite(energy) & np.isfinite(x) & np.isfinite(y))
         return np.where(bad, 0.0, q), np.where(bad, 0.0, u)
 
+    def _weights(self, energy_kev, x_mm, y_mm):
+        """Node indices, interpolation weights and flat cell index of each event (as used by :meth:`at`)."""
+        energy = np.asarray(energy_kev, dtype=float)
+        ix = _cell_index(self.x_edges_mm, np.nan_to_num(np.asarray(x_mm, dtype=float)))
+        iy = _cell_index(self.y_edges_mm, np.nan_to_num(np.asarray(y_mm, dtype=float)))
+        nodes = self.energy_kev
+        if nodes.size == 1:
+            j0 = np.zeros(energy.shape, dtype=int)
+            return j0, j0, np.zeros(energy.shape), ix * self.q.shape[2] + iy
+        e = np.clip(np.nan_to_num(energy, nan=nodes[0]), nodes[0], nodes[-1])
+        j0 = np.clip(np.searchsorted(nodes, e, side="right") - 1, 0, nodes.size - 2)
+        t = (e - nodes[j0]) / (nodes[j0 + 1] - nodes[j0])
+        return j0, j0 + 1, t, ix * self.q.shape[2] + iy
+
+    def sum_variance(self, energy_kev, x_mm, y_mm, coefficients) -> tuple[float, float]:
+        """Variance of ``sum_k c_k Q_sp(event k)`` (and of the U sum) from the statistical errors of the map.
+
+        Events in the same cell share the map value, so their contributions add linearly before squaring:
+        ``var = sum_(node, cell) (sum_k c_k a_k)^2 sigma^2`` with ``a_k`` the interpolation weight. Used by the
+        Stokes analysis to include the calibration uncertainty of the subtraction (``c_k = 2 w_k / mu_k``).
+        """
+        c = np.asarray(coefficients, dtype=float)
+        j0, j1, t, cell = self._weights(energy_kev, x_mm, y_mm)
+        good = np.isfinite(c) & np.isfinite(np.asarray(energy_kev, dtype=float))
+        n_cells = self.q.shape[1] * self.q.shape[2]
+        size = self.energy_kev.size * n_cells
+        total = np.bincount(j0[good] * n_cells + cell[good], weights=c[good] * (1 - t[good]), minlength=size)
+        total += np.bincount(j1[good] * n_cells + cell[good], weights=c[good] * t[good], minlength=size)
+        q_var = np.nan_to_num(self.q_err.ravel() ** 2)
+        u_var = np.nan_to_num(self.u_err.ravel() ** 2)
+        return float(np.sum(total**2 * q_var)), float(np.sum(total**2 * u_var))
+
     def at_table(self, table) -> tuple[np.ndarray, np.ndarray]:
         """:meth:`at` with the energy and position columns of an event table."""
         xc, yc = self.columns

@@ -67,7 +67,8 @@ class StokesSums:
     """Additive sums over events from which Stokes parameters and their errors follow.
 
     ``i = sum w``, ``q = sum w Q_k``, ``u = sum w U_k``; second moments ``w2 = sum w^2``, ``qq = sum w^2 Q_k^2``,
-    ``uu``, ``qu``, ``qi = sum w^2 Q_k``, ``ui``; ``m2 = sum w^2 / mu_k^2`` (for the MDP); ``n_events``.
+    ``uu``, ``qu``, ``qi = sum w^2 Q_k``, ``ui``; ``m2 = sum w^2 / mu_k^2`` (for the MDP); ``n_events``;
+    ``extra_var_q``, ``extra_var_u``: variance of the ``q``, ``u`` sums from other sources than counting.
     """
 
     i: float
@@ -83,6 +84,15 @@ class StokesSums:
     n_events: int
     n_background: int = 0
     background_scale: float = 0.0
+    extra_var_q: float = 0.0
+    extra_var_u: float = 0.0
+
+    def with_extra_variance(self, var_q: float, var_u: float) -> StokesSums:
+        """Add variance to the ``q`` and ``u`` sums that is not from event counting (e.g. the calibration error of
+        a subtracted spurious-modulation map, :meth:`trackfit.analysis.SpuriousMap.sum_variance`)."""
+        import dataclasses
+
+        return dataclasses.replace(self, extra_var_q=self.extra_var_q + var_q, extra_var_u=self.extra_var_u + var_u)
 
     def subtract(self, background: StokesSums, scale: float) -> StokesSums:
         """``self - scale * background`` (means subtract, variances add with ``scale^2``).
@@ -97,12 +107,14 @@ class StokesSums:
                           qq=self.qq + s2 * background.qq, uu=self.uu + s2 * background.uu,
                           qu=self.qu + s2 * background.qu, qi=self.qi + s2 * background.qi,
                           ui=self.ui + s2 * background.ui, m2=self.m2 + s2 * background.m2,
-                          n_events=self.n_events, n_background=background.n_events, background_scale=scale)
+                          n_events=self.n_events, n_background=background.n_events, background_scale=scale,
+                          extra_var_q=self.extra_var_q + s2 * background.extra_var_q,
+                          extra_var_u=self.extra_var_u + s2 * background.extra_var_u)
 
     def __add__(self, other: StokesSums) -> StokesSums:
         if not isinstance(other, StokesSums):
             return NotImplemented
-        keys = ("i", "q", "u", "w2", "qq", "uu", "qu", "qi", "ui", "m2", "n_events")
+        keys = ("i", "q", "u", "w2", "qq", "uu", "qu", "qi", "ui", "m2", "n_events", "extra_var_q", "extra_var_u")
         return StokesSums(**{k: getattr(self, k) + getattr(other, k) for k in keys})
 
 
@@ -255,8 +267,8 @@ class StokesResult:
                              f"({sums.n_events} events, {sums.n_background} background events)")
         i = sums.i
         q, u = sums.q / i, sums.u / i
-        var_q = max((sums.qq - 2 * q * sums.qi + q * q * sums.w2) / i**2, 0.0)
-        var_u = max((sums.uu - 2 * u * sums.ui + u * u * sums.w2) / i**2, 0.0)
+        var_q = max((sums.qq - 2 * q * sums.qi + q * q * sums.w2 + sums.extra_var_q) / i**2, 0.0)
+        var_u = max((sums.uu - 2 * u * sums.ui + u * u * sums.w2 + sums.extra_var_u) / i**2, 0.0)
         cov = (sums.qu - q * sums.ui - u * sums.qi + q * u * sums.w2) / i**2
         degree = float(np.hypot(q, u))
         sigma = float(np.sqrt(0.5 * (var_q + var_u)))

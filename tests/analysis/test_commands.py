@@ -1,0 +1,120 @@
+"""The ``trackfit calibrate`` and ``trackfit polarization`` commands on small event-table files."""
+
+import json
+
+import numpy as np
+import pytest
+
+from trackfit.analysis import FE55_KALPHA_KEV, Calibration
+from trackfit.cli import main
+from trackfit.io.table import write_table
+
+from .test_spectrum import fe55_pulse_heights
+from .toys import modulated_angles
+
+ADC_PER_KEV = 3000.0
+
+
+def make_table(rng, n, *, energy_kev=None, modulation=0.0, angle_rad=0.0, spot_mm=None):
+    """An event table with the columns of docs/table-format.md; flat field of Fe-55 unless energy_kev is given."""
+    if energy_kev is None:
+        ph = fe55_pulse_heights(rng, n, gain=ADC_PER_KEV)
+    else:
+        ph = ADC_PER_KEV * energy_kev * (1 + 0.07 * rng.standard_normal(n))
+    if spot_mm is None:
+        x, y = rng.uniform(-4, 4, n), rng.uniform(-4, 4, n)
+    else:
+        x, y = rng.normal(0, spot_mm, n), rng.normal(0, spot_mm, n)
+    mom2_trans = rng.uniform(0.001, 0.004, n)
+    return {
+        "trigger_id": np.arange(n, dtype=np.int64), "time_s": np.sort(rng.uniform(0, 100, n)),
+        "status": np.where(rng.random(n) < 0.02, 4, 0).astype(np.uint16),
+        "n_pixels": rng.integers(20, 300, n).astype(np.int32), "n_clusters": np.ones(n, np.int16),
+        "pulse_height": ph.astype(np.float32), "energy_kev": (ph / 2000.0).astype(np.float32),  # uncalibrated
+        "bary_x_mm": x.astype(np.float32), "bary_y_mm": y.astype(np.float32),
+        "conv_x_mm": x.astype(np.float32), "conv_y_mm": y.astype(np.float32),
+        "axis_rad": np.zeros(n, np.float32),
+        "emission_rad": modulated_angles(rng, n, modulation, angle_rad).astype(np.float32),
+        "mom2_long": (mom2_trans * rng.uniform(1.5, 5, n)).astype(np.float32),
+        "mom2_trans": mom2_trans.astype(np.float32), "mom3_long": np.zeros(n, np.float32),
+        "peak_adc": np.full(n, 100, np.int16),
+    }
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    rng = np.random.default_rng(110)
+    folder = tmp_path_factory.mktemp("runs")
+    paths = {}
+    for name, kwargs, n in (("flat", {}, 20_000), ("pol4", dict(energy_kev=4.0, modulation=0.35), 20_000),
+                            ("pol6", dict(energy_kev=6.0, modulation=0.5, angle_rad=np.deg2rad(30)), 20_000),
+                            ("science", dict(energy_kev=5.0, modulation=0.425 * 0.6, angle_rad=np.deg2rad(-45),
+                                             spot_mm=1.0), 20_000)):
+        paths[name] = write_table(folder / f"{name}.h5", make_table(rng, n, **kwargs))
+    return paths
+
+
+def test_calibrate_then_polarization(runs, tmp_path, capsys):
+    cal_path = tmp_path / "cal.h5"
+    figures = tmp_path / "figs"
+    assert main(["calibrate", "-o", str(cal_path), "--flat-field", str(runs["flat"]), "--unpolarized",
+                 str(runs["flat"]), "--polarized", f"{runs['pol4']},angle_deg=0", "--polarized",
+                 f"{runs['pol6']},angle_deg=30", "--gain-cell-mm", "2", "--spurious-cell-mm", "8",
+                 "--status-ok", "--figures", str(figures)]) == 0
+    out = capsys.readouterr().out
+    assert "modulation factor pol6.h5" in out and "wrote" in out
+    cal = Calibration.load(cal_path)
+    assert cal.parts() == ["energy_scale", "gain_map", "modulation_factor", "spurious_modulation"]
+    # the energy scale maps the K-alpha peak to 5.895 keV (X-ray Data Booklet)
+    assert cal.energy_scale.energy_kev(ADC_PER_KEV * FE55_KALPHA_KEV) == pytest.approx(FE55_KALPHA_KEV, rel=0.01)
+    curve = cal.modulation_factor
+    for energy, value, error, truth in zip(curve.points_energy_kev, curve.points_value, curve.points_error,
+                                           (0.35, 0.5), strict=True):
+        assert abs(value - truth) < 4 * error  # error includes the spurious map's (sqrt(2/N) each, Kislat 2015)
+        assert error > np.sqrt(2 / 20_000)
+        assert energy == pytest.approx(4.0 if truth == 0.35 else 6.0, rel=0.02)
+    assert cal.provenance["modulation_factor"]["runs"] == ["pol4.h5", "pol6.h5"]
+    assert {p.name for p in figures.glob("*.png")} >= {"gain_map.png", "modulation_factor.png",
+                                                      "flat_field_spectrum.png"}
+
+    result_path = tmp_path / "result.json"
+    assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--status-ok", "--energy-kev", "3",
+                 "8", "--json", str(result_path), "--bands", "3", "5", "8", "--figures", str(figures)]) == 0
+    printed = capsys.readouterr().out
+    assert "degree" in printed and "MDP99" in printed and "Cut flow" in printed
+    result = json.loads(result_path.read_text())
+    stokes = result["stokes"]
+    assert abs(stokes["degree"] - 0.6) < 4 * stokes["degree_err"]
+    assert abs(stokes["angle_deg"] + 45) < 4 * stokes["angle_err_deg"]
+    assert result["cut_flow"]["steps"][0]["cut"] == "status == 0"
+    assert len(result["energy_bands"]["bands"]) == 2
+    assert (figures / "science_stokes_plane.png").exists()
+
+
+def test_polarization_errors(runs, tmp_path, capsys):
+    assert main(["polarization", str(runs["science"])]) == 2
+    assert "needs a modulation factor" in capsys.readouterr().err
+    bad = tmp_path / "bad.toml"
+    bad.write_text("energy = [1, 2]\n")
+    assert main(["polarization", str(runs["science"]), "--modulation-factor", "0.4", "--cuts", str(bad)]) == 2
+    assert "valid keys" in capsys.readouterr().err
+    assert main(["polarization", str(runs["science"]), "--modulation-factor", "0.4", "--bkg-circle", "3", "3",
+                 "1"]) == 2
+    assert "--background-scale" in capsys.readouterr().err
+    assert main(["polarization", str(tmp_path / "missing.h5"), "--modulation-factor", "0.4"]) == 2
+    assert "does not exist" in capsys.readouterr().err
+
+
+def test_polarization_with_background_and_weights(runs, capsys):
+    # off-source ring far from the spot: scale = source area / background area (Kislat et al. 2015 subtraction)
+    assert main(["polarization", str(runs["science"]), "--modulation-factor", "0.425", "--circle", "0", "0", "2",
+                 "--bkg-circle", "3", "3", "0.5", "--background-scale", "16", "--weights", "ellipticity"]) == 0
+    out = capsys.readouterr().out
+    assert "Background cut flow" in out and "background" in out
+
+
+def test_calibrate_needs_input(tmp_path, capsys):
+    assert main(["calibrate", "-o", str(tmp_path / "c.h5")]) == 2
+    assert "nothing to calibrate" in capsys.readouterr().err
+    assert main(["calibrate", "-o", str(tmp_path / "c.h5"), "--polarized", "x.h5,angel_deg=3"]) == 2
+    assert "expected key=value" in capsys.readouterr().err
