@@ -262,7 +262,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
     Path
         ``out_path``.
     """
-    from ..io.raw import open_raw
+    from ..io.raw import _prefetched, open_raw
 
     config = _as_config(config)
     raw_path = Path(raw_path)
@@ -291,7 +291,16 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         fingerprint = _Fingerprint()
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
 
-        # writer thread: hashes the input content and appends the results, in batch order
+        # reader thread (read-ahead of two batches): reads, decompresses and checksums the next batches;
+        # writer thread: appends the results in batch order. Only result columns wait for the writer, so about
+        # four batches of raw signal are alive at once, whatever the file size.
+        def read(bounds):
+            batch = reader.read_batch(*bounds, with_truth=False)
+            fingerprint.update(batch)
+            return batch
+
+        n_events = len(reader)
+        bounds = [(a, min(a + int(batch_size), n_events)) for a in range(0, n_events, int(batch_size))]
         work: queue.Queue = queue.Queue(maxsize=2)
         failure: list[BaseException] = []
 
@@ -302,10 +311,8 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
                     return
                 if failure:
                     continue
-                batch, columns = item
                 try:
-                    fingerprint.update(batch)
-                    writer.append(columns)
+                    writer.append(item)
                 except BaseException as err:  # noqa: BLE001 - re-raised in the caller
                     failure.append(err)
 
@@ -314,12 +321,14 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         pool = ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") if threads > 1 else None
         try:
             try:
-                for batch in reader.iter_batches(int(batch_size), with_truth=False, prefetch=True):
+                for batch in _prefetched(read, bounds):
                     if failure:
                         break
                     out_f, out_i = prepared.run(batch, threads, pool)
-                    work.put((batch, _columns(batch, out_f, out_i)))
+                    work.put(_columns(batch, out_f, out_i))
+                    del out_f, out_i
                     update(len(batch))
+                    del batch
             finally:
                 work.put(None)
                 thread.join()
