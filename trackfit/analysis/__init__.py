@@ -17,12 +17,15 @@ What to use when
   :func:`fit_modulation_factor_curve`; :func:`measure_spurious_map` on unpolarized runs and
   :func:`separate_spurious` for runs 90 degrees apart. :class:`Calibration` bundles energy scale, gain map,
   modulation-factor curve and spurious map, saves/loads them (``docs/calibration-format.md``) and applies them to
-  any event table; :func:`measure_polarization` does selection + calibration + Stokes on a table in one call.
+  any event table; :func:`build_calibration` makes one from calibration runs (``trackfit calibrate``);
+  :func:`measure_polarization` does selection + calibration + Stokes on a table in one call
+  (``trackfit polarization``). :func:`bragg_mosaic_polarization` gives the degree of a Bragg-reflected beam.
 * Figures: :mod:`trackfit.analysis.figures` (matplotlib, imported lazily).
 """
 
 from . import figures  # noqa: F401  (matplotlib itself is imported inside the functions)
 from .calfile import CALIBRATION_FORMAT_VERSION, Calibration, CalibrationFormatError
+from .calibrate import CalibrationReport, CalibrationRun, build_calibration
 from .gainmap import GainMap, fit_gain_map
 from .gaintime import GainDrift, fit_gain_drift
 from .modfactor import (
@@ -53,6 +56,7 @@ from .selection import (
     select_rows,
     selection_from_dict,
 )
+from .sources import bragg_angle_rad, bragg_energy_kev, bragg_mosaic_polarization
 from .spectrum import FE55_KALPHA_KEV, FE55_KBETA_KEV, FE55_LINES_KEV, EnergyScale, LineFit, fit_fe55, fit_line
 from .spurious import SpuriousMap, SpuriousSeparation, cell_edges, measure_spurious_map, separate_spurious
 from .stokes import (
@@ -69,7 +73,9 @@ from .stokes import (
 )
 
 __all__ = [
-    "AllOf", "AnyOf", "CALIBRATION_FORMAT_VERSION", "Calibration", "CalibrationFormatError", "CircleRegion", "Cut",
+    "AllOf", "AnyOf", "CALIBRATION_FORMAT_VERSION", "Calibration", "CalibrationFormatError", "CalibrationReport",
+    "CalibrationRun", "CircleRegion", "Cut", "bragg_angle_rad", "bragg_energy_kev", "bragg_mosaic_polarization",
+    "build_calibration",
     "CutFlow", "ElongationCut", "EnergyScale", "EnergyWindow", "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV",
     "FE55_LINES_KEV", "GainDrift", "GainMap", "HexagonRegion", "Invert", "LineFit", "MDP99_CONSTANT",
     "ModulationFactorCurve", "ModulationFactorPoint", "ModulationFit", "PixelCountCut", "PolarizationMeasurement",
