@@ -15,8 +15,8 @@ import numpy as np
 
 from .calfile import Calibration
 from .modulation import ModulationFit, modulation_curve
-from .selection import Cut, CutFlow, Everything, select_rows
-from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights, stokes_in_bands, stokes_sums
+from .selection import Cut, CutFlow, EnergyWindow, Everything, select_rows
+from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights, stokes_sums
 
 __all__ = ["PolarizationMeasurement", "measure_polarization", "event_weights", "WEIGHTINGS"]
 
@@ -30,6 +30,8 @@ def event_weights(table: Mapping, weighting) -> np.ndarray | None:
     if weighting is None or (isinstance(weighting, str) and weighting == "none"):
         return None
     if isinstance(weighting, str):
+        if weighting == "user_weight":  # per-row weights attached by measure_polarization
+            return np.asarray(table["user_weight"], dtype=float)
         if weighting != "ellipticity":
             raise ValueError(f"unknown weighting {weighting!r}; expected one of {WEIGHTINGS} or an array")
         return ellipticity_weights(table["mom2_long"], table["mom2_trans"])
@@ -140,12 +142,13 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
     modulation_factor : float, optional
         One modulation factor for all events (overrides the calibration's curve).
     weighting : {"none", "ellipticity"} or array_like
-        Per-event weights (Di Marco et al. 2022); the modulation factor must be measured with the same weights.
+        Per-event weights (Di Marco et al. 2022), or one weight per table row; the modulation factor must be
+        measured with the same weights.
     background_selection : Cut, optional
         Off-source events, taken from ``background_table`` (default: the same table), subtracted with
         ``background_scale`` = (area x time on) / (area x time off) (required with a background).
     energy_bands_kev : array_like, optional
-        Band edges for a per-band table.
+        Band edges for a per-band table (each band with its own background subtraction and map errors).
     n_bins : int
         Bins of the modulation curve (multiple of 12).
     use_gain_drift : bool
@@ -154,23 +157,48 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Level of the Rice interval of the degree.
     """
     selection = selection if selection is not None else Everything()
+    if not isinstance(weighting, str) and weighting is not None:  # per-row weights travel with the rows
+        w = np.asarray(weighting, dtype=float)
+        n_rows = len(table["emission_rad"])
+        if w.shape != (n_rows,):
+            raise ValueError(f"weights must have one value per table row, shape ({n_rows},) (got {w.shape})")
+        if background_table is not None:
+            raise ValueError("per-row weights cannot be used with a separate background_table; use "
+                             "weighting='ellipticity' or put the weights in both tables")
+        table = dict(table, user_weight=w)
+        weighting = "user_weight"
     events, flow = _prepared(table, calibration, selection, use_gain_drift)
     sums, mu, weights, spurious = _sums(events, calibration, modulation_factor, weighting)
-    background_flow = None
+    background_flow = off_events = None
     if background_selection is not None or background_table is not None:
         if background_scale is None:
             raise ValueError("a background needs background_scale = (area x time on) / (area x time off)")
         off_table = background_table if background_table is not None else table
         off_selection = background_selection if background_selection is not None else Everything()
         off_events, background_flow = _prepared(off_table, calibration, off_selection, use_gain_drift)
-        off_sums = _sums(off_events, calibration, modulation_factor, weighting)[0]
-        sums = sums.subtract(off_sums, background_scale)
+        sums = sums.subtract(_sums(off_events, calibration, modulation_factor, weighting)[0], background_scale)
     result = StokesResult.from_sums(sums, confidence_level=confidence_level)
     bands = None
     if energy_bands_kev is not None:
-        bands = stokes_in_bands(events["emission_rad"], events["energy_kev"], energy_bands_kev,
-                                modulation_factor=mu, weights=weights, confidence_level=confidence_level,
-                                **spurious)
+        edges = np.asarray(energy_bands_kev, dtype=float)
+        if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0):
+            raise ValueError(f"'energy_bands_kev' must be increasing with at least 2 entries (got {edges.tolist()})")
+        results = []
+        for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+            band = EnergyWindow(low_kev=float(lo), high_kev=float(hi))
+            band_events = select_rows(events, band.mask(events))
+            if len(band_events["emission_rad"]) == 0:
+                results.append(None)
+                continue
+            band_sums = _sums(band_events, calibration, modulation_factor, weighting)[0]
+            if off_events is not None:
+                off_band = select_rows(off_events, band.mask(off_events))
+                if len(off_band["emission_rad"]):
+                    band_sums = band_sums.subtract(_sums(off_band, calibration, modulation_factor, weighting)[0],
+                                                   background_scale)
+            results.append(StokesResult.from_sums(band_sums, confidence_level=confidence_level,
+                                                  label=f"{lo:g}–{hi:g} keV") if band_sums.i > 0 else None)
+        bands = StokesBands(edges_kev=edges, results=tuple(results))
     phi = np.asarray(events["emission_rad"], dtype=float)
     modulation = modulation_curve(phi, n_bins=n_bins, weights=weights) if np.isfinite(phi).sum() >= 2 else None
     settings = {"selection": selection.to_dict(), "weighting": weighting if isinstance(weighting, str) else "array",
