@@ -90,7 +90,6 @@ def kernel_columns(batch, config=None):
     from trackfit.recon._kernels import FLOAT_COLUMNS, INT_COLUMNS
     from trackfit.recon.pipeline import _Prepared
 
-    batch = batch.compact()
     out_f, out_i = _Prepared(config or ReconConfig(), batch.grid).run(batch)
     cols = {name: out_f[:, k] for k, name in enumerate(FLOAT_COLUMNS)}
     cols.update({name: out_i[:, k] for k, name in enumerate(INT_COLUMNS)})

@@ -193,6 +193,8 @@ def test_inconsistent_roi_in_an_unvalidated_batch_is_flagged_not_read():
     table = reconstruct(batch, ReconConfig(bad_pixels=[(0, 0)]))
     assert list(table["status"] & Status.MALFORMED_INPUT) == [0, 1, 1]  # area 16 != 9 pixels; ROI off the chip
     assert_nan_explained(table)
+    beyond = EventBatch(roi=[[10, 10, 3, 3]], start=[20, 29], signal=np.full(23, 100), validate=False)
+    assert reconstruct(beyond)["status"][0] == Status.MALFORMED_INPUT  # pixels past the end of the signal array
 
 
 @pytest.mark.parametrize("shifted", ["odd", "even"])

@@ -1,7 +1,7 @@
 """Numba kernels of the reconstruction (private: use :func:`trackfit.reconstruct`).
 
 One kernel, :func:`reconstruct_range`, runs the whole per-event chain of ``PHYSICS.md`` §2 over a range of events
-of a compact batch (``start[0] == 0``) and writes into preallocated output arrays; it never raises for one bad
+of a batch and writes into preallocated output arrays; it never raises for one bad
 event, it sets a status bit (:mod:`trackfit.recon.status`) and writes NaN where a value is undefined. It releases
 the GIL (``nogil``), so threads can run it on disjoint event ranges while another thread reads the next batch.
 
@@ -72,13 +72,15 @@ def _principal_axis(mxx, myy, mxy):
 def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch_mm, row_pitch_mm, x0_mm, y0_mm,
                       parity, threshold, min_pixels, r_min, r_max, weight_scale_mm, centre_on_conversion,
                       counts_per_kev, saturation_adc, out_f, out_i):
-    """Reconstruct events ``lo <= i < hi`` of a compact batch into rows of ``out_f`` / ``out_i``.
+    """Reconstruct events ``lo <= i < hi`` of a batch into rows of ``out_f`` / ``out_i``.
 
     Parameters
     ----------
     lo, hi : int
         Event range.
-    roi : int32 (N, 4); start : int64 (N + 1,) with start[0] == 0; signal : int16 (M,); bad : bool (N,)
+    roi : int32 (N, 4); start : int64 (N + 1,); signal : int16 (M,); bad : bool (N,)
+        Event ``i`` is ``signal[start[i]:start[i + 1]]`` (``start[0]`` may be > 0); events whose ROI does not
+        match their pixel range, or whose range leaves ``signal``, are flagged as malformed and not read.
     mask : uint8 (n_rows * n_columns,) or empty
         Chip-sized bad-pixel map, row by row (1 = ignore the pixel); empty for no mask.
     mask_columns : int
@@ -131,7 +133,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         out_i[i, _I_NCLUS] = 0
         out_i[i, _I_PEAK] = 0
         out_i[i, _I_NCONV] = 0
-        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or (use_mask and (
+        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or s0 < 0 or start[i + 1] > signal.size or (use_mask and (
                 c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > mask.size)):
             out_i[i, _I_STATUS] = _MALFORMED
             continue

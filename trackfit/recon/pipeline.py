@@ -90,7 +90,7 @@ class _Prepared:
         )
 
     def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None):
-        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a compact batch."""
+        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute)."""
         n = len(batch)
         out_f = np.empty((n, len(FLOAT_COLUMNS)), np.float64)
         out_i = np.empty((n, len(INT_COLUMNS)), np.int64)
@@ -162,7 +162,6 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTab
                         "wrap your arrays with EventBatch(...) or EventBatch.from_images(...)")
     config = _as_config(config)
     threads = max(1, int(threads))
-    batch = batch.compact()
     prepared = _Prepared(config, batch.grid)
     if threads > 1:
         with ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") as pool:
