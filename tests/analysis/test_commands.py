@@ -118,3 +118,18 @@ def test_calibrate_needs_input(tmp_path, capsys):
     assert "nothing to calibrate" in capsys.readouterr().err
     assert main(["calibrate", "-o", str(tmp_path / "c.h5"), "--polarized", "x.h5,angel_deg=3"]) == 2
     assert "expected key=value" in capsys.readouterr().err
+
+
+def test_provenance_names_inputs(runs, tmp_path):
+    # every output file stores its inputs' identity (STYLE.md "Configs and results")
+    cal_path = tmp_path / "cal.h5"
+    assert main(["calibrate", "-o", str(cal_path), "--flat-field", str(runs["flat"]), "--gain-cell-mm", "4"]) == 0
+    prov = Calibration.load(cal_path).provenance["gain_map"]
+    assert prov["inputs"][0]["label"] == "flat.h5" and prov["inputs"][0]["n_rows"] == 20_000
+    assert prov["cuts"] == {"cut": "StatusCut", "allowed_bits": 0}  # the default flat-field selection
+    out = tmp_path / "r.json"
+    assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--modulation-factor", "0.4",
+                 "--json", str(out)]) == 0
+    result = json.loads(out.read_text())
+    assert result["inputs"]["table"]["n_rows"] == 20_000
+    assert "gain_map" in result["calibration_provenance"]

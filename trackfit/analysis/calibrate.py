@@ -28,7 +28,7 @@ from .selection import Cut, StatusCut, select_rows
 from .spectrum import FE55_KALPHA_KEV, EnergyScale, LineFit, fit_fe55, fit_line
 from .spurious import cell_edges, measure_spurious_map
 
-__all__ = ["CalibrationRun", "CalibrationReport", "build_calibration"]
+__all__ = ["CalibrationRun", "CalibrationReport", "build_calibration", "table_identity"]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -63,6 +63,17 @@ class CalibrationReport:
     line_fits: list = field(default_factory=list)
     modulation_points: list = field(default_factory=list)
     notes: list = field(default_factory=list)
+
+
+_IDENTITY_KEYS = ("input_name", "input_fingerprint", "config_toml", "trackfit_version", "created_utc")
+
+
+def table_identity(table, label: str = "") -> dict:
+    """What identifies an input table in a provenance record: its label, row count and, for event tables
+    written by the reconstruction, the raw input's name and fingerprint and the reconstruction settings."""
+    prov = getattr(table, "provenance", {}) or {}
+    n_rows = len(next(iter(table.values()))) if len(table) else 0
+    return {"label": label, "n_rows": int(n_rows), **{f"table_{k}": prov[k] for k in _IDENTITY_KEYS if k in prov}}
 
 
 def _concat(tables, columns):
@@ -125,13 +136,15 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         chosen = [select_rows(run.table, flat_selection.mask(run.table)) for run in flat_field]
         data = _concat(chosen, ("pulse_height", "bary_x_mm", "bary_y_mm", "time_s"))
         labels = [run.label for run in flat_field]
+        flat_inputs = [table_identity(run.table, run.label) for run in flat_field]
         ph = data["pulse_height"].astype(float)
         if gain_drift:
             if len(flat_field) != 1:
                 raise ValueError(f"gain versus time needs exactly one flat-field run (got {len(flat_field)})")
             drift = fit_gain_drift(data["time_s"], ph, n_slices=drift_slices)
             ph = drift.correct(ph, data["time_s"])
-            cal = cal.with_part("gain_drift", drift, make_provenance(runs=labels, cuts=flat_selection.to_dict()))
+            cal = cal.with_part("gain_drift", drift, make_provenance(runs=labels, cuts=flat_selection.to_dict(),
+                                                                     inputs=flat_inputs))
         if extent_mm is None:
             x_edges, y_edges = _edges(data["bary_x_mm"], gain_cell_mm), _edges(data["bary_y_mm"], gain_cell_mm)
         else:
@@ -140,7 +153,8 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         gain = fit_gain_map(data["bary_x_mm"], data["bary_y_mm"], ph, x_edges_mm=x_edges, y_edges_mm=y_edges,
                             min_counts=gain_min_counts)
         cal = cal.with_part("gain_map", gain, make_provenance(runs=labels, cuts=flat_selection.to_dict(),
-                                                               cell_mm=gain_cell_mm, min_counts=gain_min_counts))
+                                                               cell_mm=gain_cell_mm, min_counts=gain_min_counts,
+                                                               inputs=flat_inputs))
         corrected = gain.correct(ph, data["bary_x_mm"], data["bary_y_mm"])
         report.flat_field_fit = fit_fe55(corrected, bins=100, range=(0.5 * gain.reference_peak,
                                                                      1.5 * gain.reference_peak))
@@ -161,8 +175,9 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
             errors.append(fit.peak_err)
             line_labels = line_labels + [run.label]
         scale = EnergyScale.from_lines(peaks, energies, degree=2 if quadratic else 1, pulse_height_errors=errors)
-        cal = cal.with_part("energy_scale", scale, make_provenance(runs=line_labels, cuts=flat_selection.to_dict(),
-                                                                   lines_kev=energies))
+        cal = cal.with_part("energy_scale", scale, make_provenance(
+            runs=line_labels, cuts=flat_selection.to_dict(), lines_kev=energies,
+            inputs=flat_inputs + [table_identity(run.table, run.label) for run in lines]))
     elif lines:
         raise ValueError("line runs need a flat-field run for the gain map and the K-alpha reference")
 
@@ -195,7 +210,7 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
                                         min_counts=spurious_min_counts)
         cal = cal.with_part("spurious_modulation", spurious, make_provenance(
             runs=[r.label for r in unpolarized], cuts=cuts, weights=weighting, cell_mm=spurious_cell_mm,
-            min_counts=spurious_min_counts))
+            min_counts=spurious_min_counts, inputs=[table_identity(r.table, r.label) for r in unpolarized]))
 
     if polarized:
         points = []
@@ -218,5 +233,6 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         curve = fit_modulation_factor_curve(points)
         cal = cal.with_part("modulation_factor", curve, make_provenance(
             runs=[r.label for r in polarized], cuts=cuts, weights=weighting,
-            beams=[{"degree": r.polarization_degree, "angle_rad": r.polarization_angle_rad} for r in polarized]))
+            beams=[{"degree": r.polarization_degree, "angle_rad": r.polarization_angle_rad} for r in polarized],
+            inputs=[table_identity(r.table, r.label) for r in polarized]))
     return cal, report

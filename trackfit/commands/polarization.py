@@ -74,8 +74,13 @@ def run(args) -> int:
     print(measurement)
     if args.json:
         result = measurement.to_dict()
-        result["inputs"] = {"table": str(args.table), "calibration": args.calibration,
-                            "background_table": args.background_table}
+        from ..analysis.calibrate import table_identity
+
+        result["inputs"] = {"table": table_identity(table, str(args.table)), "calibration": args.calibration,
+                            "background_table": None if background_table is None
+                            else table_identity(background_table, str(args.background_table))}
+        if calibration is not None:
+            result["calibration_provenance"] = calibration.provenance
         from .. import __version__
 
         result["trackfit_version"] = __version__
