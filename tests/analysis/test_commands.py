@@ -133,3 +133,23 @@ def test_provenance_names_inputs(runs, tmp_path):
     result = json.loads(out.read_text())
     assert result["inputs"]["table"]["n_rows"] == 20_000
     assert "gain_map" in result["calibration_provenance"]
+
+
+def test_lines_drift_and_update(runs, tmp_path):
+    rng = np.random.default_rng(111)
+    line = write_table(tmp_path / "line3.h5", make_table(rng, 8000, energy_kev=3.0))
+    first = tmp_path / "first.h5"
+    assert main(["calibrate", "-o", str(first), "--flat-field", str(runs["flat"]), "--line",
+                 f"{line},energy_kev=3.0", "--gain-drift", "--gain-cell-mm", "4"]) == 0
+    cal = Calibration.load(first)
+    assert cal.parts() == ["energy_scale", "gain_map", "gain_drift"]
+    # two lines: both land on their energies (a straight line through two points)
+    scale = cal.energy_scale
+    assert scale.energy_kev(scale.line_pulse_heights) == pytest.approx([FE55_KALPHA_KEV, 3.0], rel=1e-6)
+    assert scale.energy_kev(ADC_PER_KEV * 3.0) == pytest.approx(3.0, rel=0.01)
+    # --update keeps the parts it does not remake
+    second = tmp_path / "second.h5"
+    assert main(["calibrate", "-o", str(second), "--update", str(first), "--polarized", str(runs["pol6"])]) == 0
+    updated = Calibration.load(second)
+    assert updated.parts() == ["energy_scale", "gain_map", "gain_drift", "modulation_factor"]
+    assert updated.energy_scale == scale

@@ -95,7 +95,7 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
                       selection: Cut | None = None, flat_selection: Cut | None = None, weighting: str = "none",
                       gain_cell_mm: float = 1.0, gain_min_counts: int = 300, gain_drift: bool = False,
                       drift_slices: int = 20, quadratic: bool = False, spurious_cell_mm: float = 2.0,
-                      spurious_min_counts: int = 100, extent_mm=None,
+                      spurious_min_counts: int = 100, spurious_energy_edges_kev=None, extent_mm=None,
                       base: Calibration | None = None) -> tuple[Calibration, CalibrationReport]:
     """Make calibration parts from runs (see the module docstring for the steps).
 
@@ -121,6 +121,8 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         Quadratic energy scale (needs three lines).
     spurious_cell_mm, spurious_min_counts : float, int
         Cells of the spurious map and the minimum events per cell.
+    spurious_energy_edges_kev : array_like, optional
+        Pool the unpolarized runs and make one spurious-map node per energy bin (default: one node per run).
     extent_mm : (x0, x1, y0, y1), optional
         Region covered by the maps (default: the range of the flat-field or unpolarized positions).
     base : Calibration, optional
@@ -207,10 +209,11 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
             x_edges = cell_edges(extent_mm[0], extent_mm[1], spurious_cell_mm)
             y_edges = cell_edges(extent_mm[2], extent_mm[3], spurious_cell_mm)
         spurious = measure_spurious_map(prepared_runs, x_edges_mm=x_edges, y_edges_mm=y_edges,
-                                        min_counts=spurious_min_counts)
+                                        min_counts=spurious_min_counts, energy_edges_kev=spurious_energy_edges_kev)
         cal = cal.with_part("spurious_modulation", spurious, make_provenance(
             runs=[r.label for r in unpolarized], cuts=cuts, weights=weighting, cell_mm=spurious_cell_mm,
-            min_counts=spurious_min_counts, inputs=[table_identity(r.table, r.label) for r in unpolarized]))
+            min_counts=spurious_min_counts, energy_edges_kev=spurious_energy_edges_kev,
+            inputs=[table_identity(r.table, r.label) for r in unpolarized]))
 
     if polarized:
         points = []

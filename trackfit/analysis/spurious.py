@@ -194,8 +194,8 @@ def _cell_means(phi, w, ix, iy, shape):
 
 
 def measure_spurious_map(runs, *, x_edges_mm, y_edges_mm, position: str = "conversion",
-                         min_counts: int = 1, info: dict | None = None) -> SpuriousMap:
-    """Measure ``Q_sp``, ``U_sp`` per spatial cell from unpolarized runs, one energy node per run.
+                         min_counts: int = 1, energy_edges_kev=None, info: dict | None = None) -> SpuriousMap:
+    """Measure ``Q_sp``, ``U_sp`` per spatial cell from unpolarized runs, one energy node per run (or per bin).
 
     Parameters
     ----------
@@ -209,6 +209,9 @@ def measure_spurious_map(runs, *, x_edges_mm, y_edges_mm, position: str = "conve
         Which point of each track locates it.
     min_counts : int
         Cells with fewer events are left empty (NaN, applied as 0).
+    energy_edges_kev : array_like, optional
+        Pool all runs and make one node per energy bin instead (for broad-band unpolarized data); empty bins
+        are skipped.
     """
     x_edges = np.asarray(x_edges_mm, dtype=float)
     y_edges = np.asarray(y_edges_mm, dtype=float)
@@ -219,6 +222,18 @@ def measure_spurious_map(runs, *, x_edges_mm, y_edges_mm, position: str = "conve
         raise ValueError(f"'position' must be 'conversion' or 'barycentre' (got {position!r})")
     xc, yc = ("conv_x_mm", "conv_y_mm") if position == "conversion" else ("bary_x_mm", "bary_y_mm")
     shape = (x_edges.size - 1, y_edges.size - 1)
+    runs = list(runs)
+    if energy_edges_kev is not None and runs:
+        edges_e = np.asarray(energy_edges_kev, dtype=float)
+        if edges_e.ndim != 1 or edges_e.size < 2 or np.any(np.diff(edges_e) <= 0):
+            raise ValueError(f"'energy_edges_kev' must be increasing with at least 2 entries (got {edges_e.tolist()})")
+        names = ["emission_rad", "energy_kev", xc, yc] + (["weights"] if all("weights" in r for r in runs) else [])
+        pooled = {name: np.concatenate([np.asarray(r[name], dtype=float) for r in runs]) for name in names}
+        runs = []
+        for lo, hi in zip(edges_e[:-1], edges_e[1:], strict=True):
+            inside = (pooled["energy_kev"] >= lo) & (pooled["energy_kev"] < hi)
+            if np.any(inside):
+                runs.append({name: values[inside] for name, values in pooled.items()})
     nodes = []
     for k, run in enumerate(runs):
         phi = np.asarray(run["emission_rad"], dtype=float)

@@ -44,6 +44,9 @@ def register(subparsers):
                         help="spurious-map cell size (default 2 mm)")
     parser.add_argument("--spurious-min-counts", type=int, default=100,
                         help="minimum events in a spurious-map cell (default 100)")
+    parser.add_argument("--spurious-energy-edges", nargs="+", type=float, metavar="E_KEV",
+                        help="pool the unpolarized runs into these energy bins, one map node each "
+                        "(default: one node per run)")
     parser.add_argument("--extent-mm", nargs=4, type=float, metavar=("X0", "X1", "Y0", "Y1"),
                         help="region covered by the maps (default: range of the flat-field positions)")
     parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
@@ -100,7 +103,8 @@ def run(args) -> int:
         selection=_selection_or_default(args), flat_selection=_selection_or_default(args, "flat-"),
         weighting=args.weights, gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts,
         gain_drift=args.gain_drift, quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
-        spurious_min_counts=args.spurious_min_counts, extent_mm=args.extent_mm, base=base)
+        spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
+        extent_mm=args.extent_mm, base=base)
     calibration.save(output, overwrite=args.overwrite)
     _print_report(calibration, report)
     print(f"wrote {output}")
