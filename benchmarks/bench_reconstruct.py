@@ -121,7 +121,7 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--events", type=int, default=200_000, help="events of the benchmark file (>= 200000)")
     parser.add_argument("--batch-size", type=int, default=DEFAULT_BATCH_SIZE)
-    parser.add_argument("--repeats", type=int, default=3, help="interleaved repetitions of the pipeline timings")
+    parser.add_argument("--repeats", type=int, default=5, help="interleaved repetitions of the pipeline timings")
     parser.add_argument("--no-memory", action="store_true", help="skip the 1e5 / 1e6 event memory check")
     parser.add_argument("--workdir", default=None, help="folder for the temporary files (default: a temp folder)")
     args = parser.parse_args(argv)
