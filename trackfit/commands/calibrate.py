@@ -8,9 +8,8 @@ from unpolarized runs, a modulation-factor curve from polarized runs. A thin lay
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
-
-import numpy as np
 
 from ..cli import CommandError
 from ._cuts import add_cut_options, parse_run_spec, selection_from_args
@@ -96,7 +95,7 @@ def run(args) -> int:
         angle = opts.get("angle_deg")
         polarized.append(CalibrationRun(table=_read(path), label=Path(path).name,
                                         polarization_degree=opts.get("degree", 1.0),
-                                        polarization_angle_rad=None if angle is None else float(np.deg2rad(angle))))
+                                        polarization_angle_rad=None if angle is None else math.radians(angle)))
     base = Calibration.load(args.update) if args.update else None
     calibration, report = build_calibration(
         flat_field=flat, lines=lines, unpolarized=unpolarized, polarized=polarized,
