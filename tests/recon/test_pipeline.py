@@ -35,7 +35,9 @@ def test_columns_and_dtypes_of_the_issue():
     for name in ISSUE_COLUMNS:
         assert name in table
         assert table[name].dtype == np.dtype(ISSUE_DTYPES.get(name, "float32")), name
-    assert list(table) == list(TABLE_COLUMNS)
+    assert list(table)[:len(TABLE_COLUMNS)] == list(TABLE_COLUMNS)
+    # the toy generator's truth follows, prefixed
+    assert list(table)[len(TABLE_COLUMNS):] == ["truth_" + k for k in sorted(toy_tracks(1, 1).truth)]
     assert "config_toml" in table.provenance and "trackfit_version" in table.provenance
 
 
@@ -68,6 +70,7 @@ def test_file_gives_the_same_rows_as_memory(raw_file, tmp_path, batch_size, thre
     assert len(table) == len(batch) == 3000
     for name in expected:
         assert np.array_equal(table[name], expected[name], equal_nan=True), name
+    assert np.array_equal(table["truth_angle_rad"], batch.truth["angle_rad"])  # simulated truth rides along
     prov = table.provenance
     assert prov["input_name"] == "run.h5" and prov["input_size_bytes"] == path.stat().st_size
     assert prov["input_n_events"] == 3000 and prov["n_malformed_events"] == 0

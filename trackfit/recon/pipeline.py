@@ -26,8 +26,8 @@ from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range
 from .config import ReconConfig
 
-__all__ = ["reconstruct", "reconstruct_file", "content_fingerprint", "TABLE_COLUMNS", "DEFAULT_BATCH_SIZE",
-           "output_name"]
+__all__ = ["reconstruct", "reconstruct_file", "content_fingerprint", "TABLE_COLUMNS", "TRUTH_PREFIX",
+           "DEFAULT_BATCH_SIZE", "output_name"]
 
 DEFAULT_BATCH_SIZE = 32_768
 
@@ -106,11 +106,20 @@ class _Prepared:
         return out_f, out_i
 
 
+#: prefix of the columns copied from the simulation truth of a batch (``/truth`` of a simulated raw file)
+TRUTH_PREFIX = "truth_"
+
+
 def _columns(batch: EventBatch, out_f, out_i) -> dict[str, np.ndarray]:
     values = {"event_index": batch.index, "trigger_id": batch.trigger_id, "time_s": batch.time_s}
     values.update({name: out_f[:, k] for k, name in enumerate(FLOAT_COLUMNS)})
     values.update({name: out_i[:, k] for k, name in enumerate(INT_COLUMNS)})
-    return {name: np.ascontiguousarray(values[name], dtype=dtype) for name, dtype in TABLE_COLUMNS.items()}
+    columns = {name: np.ascontiguousarray(values[name], dtype=dtype) for name, dtype in TABLE_COLUMNS.items()}
+    for key in sorted(batch.truth):
+        values = np.asarray(batch.truth[key])
+        if values.ndim == 1 and values.dtype.kind in "biuf":
+            columns[TRUTH_PREFIX + key] = np.ascontiguousarray(values)
+    return columns
 
 
 def _base_provenance(config: ReconConfig, grid: HexGrid) -> dict:
@@ -141,8 +150,9 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTab
     Returns
     -------
     EventTable
-        One row per event, in batch order, columns :data:`TABLE_COLUMNS` (see ``docs/table-format.md``); the
-        provenance holds the config TOML, the library version and the chip geometry.
+        One row per event, in batch order, columns :data:`TABLE_COLUMNS` (see ``docs/table-format.md``) followed
+        by ``truth_<name>`` copies of the batch's simulation truth, if any; the provenance holds the config TOML,
+        the library version and the chip geometry.
 
     References
     ----------
@@ -228,7 +238,7 @@ def _progress_bar(progress, total, label):
 
 def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_BATCH_SIZE, progress=True, *,
                      threads: int | None = None, strict: bool = False, overwrite: bool = False,
-                     compression: str = DEFAULT_COMPRESSION) -> Path:
+                     compression: str = DEFAULT_COMPRESSION, with_truth: bool = True) -> Path:
     """Reconstruct a raw event file into an event-table file, streaming with bounded memory.
 
     Reading (and decompressing) the next batch, the kernel on the current batch and writing the previous results
@@ -247,7 +257,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
     progress : bool or callable
         Show a progress bar (tqdm), or call ``progress(n_events_done_in_this_step)`` after each batch.
     threads : int, optional
-        Kernel threads (default: the number of CPUs, at most 2 per batch split).
+        Threads running the kernel on parts of each batch (default: ``os.cpu_count()``).
     strict : bool
         False (default): malformed events become rows flagged ``MALFORMED_INPUT`` (nothing is lost). True: the
         first malformed event raises :class:`~trackfit.io.raw.RawFormatError`.
@@ -255,6 +265,8 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         Replace an existing ``out_path``.
     compression : str
         Filter of the table columns.
+    with_truth : bool
+        Copy the ``/truth`` columns of a simulated raw file into the table as ``truth_<name>`` (default True).
 
     Returns
     -------
@@ -294,7 +306,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         # writer thread: appends the results in batch order. Only result columns wait for the writer, so about
         # four batches of raw signal are alive at once, whatever the file size.
         def read(bounds):
-            batch = reader.read_batch(*bounds, with_truth=False)
+            batch = reader.read_batch(*bounds, with_truth=with_truth)
             fingerprint.update(batch)
             return batch
 
