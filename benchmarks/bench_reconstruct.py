@@ -14,9 +14,9 @@ Prints side by side:
    larger file repeats the events of the smaller one ten times). Target: independent of the file size.
 
 The events are toy tracks (``trackfit.recon._synthetic``: a 0.6 mm segment with charge rising towards its end,
-diffused by 60 um, about 56 pixels above the default threshold of 20 ADC counts) with Gaussian pixel noise of 6 ADC
-counts (common practice for pedestal-subtracted CMOS pixels). The machine may be shared with other work: run twice
-and compare, and read the ratios rather than the absolute numbers.
+diffused by 60 um, about 60 pixels above the default threshold of 10 ADC counts) with Gaussian pixel noise of 2 ADC
+counts (50 electrons at 25 electrons per count, the simulator's readout defaults). The machine may be shared with
+other work: run twice and compare, and read the ratios rather than the absolute numbers.
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ from trackfit.recon._synthetic import toy_tracks
 from trackfit.recon.pipeline import DEFAULT_BATCH_SIZE, _columns, _Prepared
 
 ROI_SHAPE = (28, 27)
-TRACK = dict(length_mm=0.6, diffusion_mm=0.06, adc_per_electron=6.0, noise_adc=6.0, roi_shape=ROI_SHAPE)
+TRACK = dict(length_mm=0.6, diffusion_mm=0.06, adc_per_electron=6.0, noise_adc=2.0, roi_shape=ROI_SHAPE)
 
 
 def make_file(path, n, seed=1, chunk=20_000, repeat=1):

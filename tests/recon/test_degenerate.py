@@ -24,7 +24,7 @@ def _has(row, *bits):
 
 
 def test_nothing_above_threshold():
-    row, _ = _run({(C, R): 20, (C + 1, R): 5, (C + 2, R): -7})  # threshold_adc = 20: a pixel needs > 20
+    row, _ = _run({(C, R): 10, (C + 1, R): 5, (C + 2, R): -7})  # threshold_adc = 10: a pixel needs > 10
     assert row["status"] == Status.NO_SIGNAL
     assert row["n_pixels"] == 0 and row["n_clusters"] == 0 and row["pulse_height"] == 0 and row["energy_kev"] == 0
     assert np.isnan(row["bary_x_mm"]) and np.isnan(row["emission_rad"])

@@ -66,7 +66,7 @@ def test_any_direction_and_start(angle, seed, x, y):
 
 def _transformed_pair(transform, n=60, seed=5):
     batch = toy_tracks(n, seed)
-    original = [pixels_of(batch, i, threshold=20) for i in range(n)]
+    original = [pixels_of(batch, i, threshold=ReconConfig().threshold_adc) for i in range(n)]
     moved = [transform_pixels(p, transform) for p in original]
     return kernel_columns(batch_from_pixels(original)), kernel_columns(batch_from_pixels(moved))
 

@@ -17,7 +17,7 @@ __all__ = ["toy_tracks"]
 
 
 def toy_tracks(n, rng, *, grid=None, length_mm=0.5, diffusion_mm=0.02, n_electrons=600, adc_per_electron=3.0,
-               noise_adc=5.0, roi_shape=(28, 27), angle_rad=None, start_mm=None, centre_region_mm=3.0):
+               noise_adc=2.0, roi_shape=(28, 27), angle_rad=None, start_mm=None, centre_region_mm=3.0):
     """Draw ``n`` toy tracks.
 
     Parameters
@@ -30,7 +30,8 @@ def toy_tracks(n, rng, *, grid=None, length_mm=0.5, diffusion_mm=0.02, n_electro
     n_electrons : int
         Electrons per track (a fixed number; the rising profile decides where they go).
     adc_per_electron, noise_adc : float
-        Signal per electron and the standard deviation of the pixel noise, ADC counts.
+        Signal per electron and the standard deviation of the pixel noise, ADC counts (default noise 2: 50
+        electrons at 25 electrons per count, the simulator's readout defaults).
     roi_shape : (n_columns, n_rows)
         Size of the rectangular ROI, centred on the middle of the segment.
     angle_rad : float or array, optional

@@ -46,9 +46,10 @@ class ReconConfig:
     Parameters
     ----------
     threshold_adc : float
-        Zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts, >= 0). Default 20:
-        about 4 times a pixel noise of 5 ADC counts, within the common-practice range of 3 to 5 sigma; set it from
-        the pedestal RMS of your chip.
+        Zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts, >= 0). Default 10:
+        5 times a pixel noise of 50 electrons ENC (PHYSICS.md §7, from memory) at 25 electrons per ADC count (the
+        simulator's readout defaults), the top of the common-practice range of 3 to 5 sigma; set it from the
+        pedestal RMS of your chip.
     min_pixels : int
         Main clusters with fewer pixels get the ``TOO_FEW_PIXELS`` status bit (values are still computed).
         Default 6 (common practice: below that the moments of a hexagonal cluster reflect the pixel shape).
@@ -62,8 +63,9 @@ class ReconConfig:
     second_pass_centre : {"conversion_point", "weighted_barycentre"}
         Point about which the weighted second moments are taken. Default ``"conversion_point"``.
     counts_per_kev : float
-        Gain: ``energy_kev = pulse_height / counts_per_kev``. Default 100 ADC counts per keV, a placeholder to be
-        replaced by a calibration (e.g. from an Fe-55 line).
+        Gain: ``energy_kev = pulse_height / counts_per_kev``. Default 3333.3 ADC counts per keV: the simulator's
+        design values (gas gain 2000, W = 24 eV per electron, 25 electrons per ADC count: 2000 * 1000 / 24 / 25).
+        Replace it by a calibration (e.g. from an Fe-55 line) for measured data.
     saturation_adc : int
         Pixels at or above this signal set the ``SATURATED`` bit. Default 32767, the largest int16 value; lower it
         to your chip's ADC range minus the pedestal.
@@ -78,13 +80,13 @@ class ReconConfig:
     True
     """
 
-    threshold_adc: float = 20.0
+    threshold_adc: float = 10.0
     min_pixels: int = 6
     r_min: float = 1.5
     r_max: float = 3.5
     weight_scale_mm: float = 0.05
     second_pass_centre: str = "conversion_point"
-    counts_per_kev: float = 100.0
+    counts_per_kev: float = 3333.3
     saturation_adc: int = 32767
     bad_pixels: tuple = ()
 
