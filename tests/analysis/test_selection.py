@@ -120,3 +120,16 @@ def test_toml_unknown_keys_listed():
         selection_from_dict({"region": {"shape": "circle", "r": 1}})
     with pytest.raises(SelectionError, match="unknown status bit"):
         selection_from_dict({"allowed_status": ["NOPE"]})
+
+
+def test_selection_file_round_trip(tmp_path, table):
+    from trackfit.analysis.selection import write_selection
+
+    sel = (StatusCut(allowed_bits=Status.ROI_BORDER) & EnergyWindow(low_kev=2, high_kev=8) & ElongationCut(low=1.2)
+           & HexagonRegion(radius_mm=6, rotation_rad=np.pi / 6) & PixelCountCut(high=400))
+    path = tmp_path / "sel.toml"
+    write_selection(sel, path)
+    again = read_selection(path)
+    assert np.array_equal(again.mask(table), sel.mask(table))
+    with pytest.raises(SelectionError, match="cannot express"):
+        write_selection(StatusCut() | EnergyWindow(low_kev=1), path)

@@ -55,6 +55,8 @@ from .selection import (
     read_selection,
     select_rows,
     selection_from_dict,
+    selection_to_dict,
+    write_selection,
 )
 from .sources import bragg_angle_rad, bragg_energy_kev, bragg_mosaic_polarization
 from .spectrum import FE55_KALPHA_KEV, FE55_KBETA_KEV, FE55_LINES_KEV, EnergyScale, LineFit, fit_fe55, fit_line
@@ -74,15 +76,14 @@ from .stokes import (
 
 __all__ = [
     "AllOf", "AnyOf", "CALIBRATION_FORMAT_VERSION", "Calibration", "CalibrationFormatError", "CalibrationReport",
-    "CalibrationRun", "CircleRegion", "Cut", "bragg_angle_rad", "bragg_energy_kev", "bragg_mosaic_polarization",
-    "build_calibration",
-    "CutFlow", "ElongationCut", "EnergyScale", "EnergyWindow", "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV",
-    "FE55_LINES_KEV", "GainDrift", "GainMap", "HexagonRegion", "Invert", "LineFit", "MDP99_CONSTANT",
-    "ModulationFactorCurve", "ModulationFactorPoint", "ModulationFit", "PixelCountCut", "PolarizationMeasurement",
-    "RangeCut", "RectangleRegion", "SelectionError", "SpuriousMap", "SpuriousSeparation", "StatusCut",
-    "StokesBands", "StokesResult", "StokesSums", "cell_edges", "ellipticity_weights", "fit_fe55",
-    "fit_gain_drift", "fit_gain_map", "fit_line", "fit_modulation_factor_curve", "mdp99",
+    "CalibrationRun", "CircleRegion", "Cut", "CutFlow", "ElongationCut", "EnergyScale", "EnergyWindow",
+    "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV", "FE55_LINES_KEV", "GainDrift", "GainMap", "HexagonRegion",
+    "Invert", "LineFit", "MDP99_CONSTANT", "ModulationFactorCurve", "ModulationFactorPoint", "ModulationFit",
+    "PixelCountCut", "PolarizationMeasurement", "RangeCut", "RectangleRegion", "SelectionError", "SpuriousMap",
+    "SpuriousSeparation", "StatusCut", "StokesBands", "StokesResult", "StokesSums", "bragg_angle_rad",
+    "bragg_energy_kev", "bragg_mosaic_polarization", "build_calibration", "cell_edges", "ellipticity_weights",
+    "fit_fe55", "fit_gain_drift", "fit_gain_map", "fit_line", "fit_modulation_factor_curve", "mdp99",
     "measure_modulation_factor", "measure_polarization", "measure_spurious_map", "modulation_curve",
-    "read_selection", "rice_interval", "select_rows", "selection_from_dict", "separate_spurious",
-    "stokes_in_bands", "stokes_parameters", "stokes_sums",
+    "read_selection", "rice_interval", "select_rows", "selection_from_dict", "selection_to_dict",
+    "separate_spurious", "stokes_in_bands", "stokes_parameters", "stokes_sums", "write_selection",
 ]

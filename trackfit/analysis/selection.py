@@ -44,7 +44,9 @@ __all__ = [
     "SelectionError",
     "select_rows",
     "selection_from_dict",
+    "selection_to_dict",
     "read_selection",
+    "write_selection",
 ]
 
 
@@ -563,3 +565,62 @@ def read_selection(path) -> Cut:
         except tomllib.TOMLDecodeError as err:
             raise SelectionError(f"{path}: not valid TOML: {err}") from None
     return selection_from_dict(config, source=str(path))
+
+
+def _bounds(part) -> list[float]:
+    """[low, high] of a range cut with open sides as -inf / inf (what a selection file writes)."""
+    return [float("-inf") if part.low is None else float(part.low),
+            float("inf") if part.high is None else float(part.high)]
+
+
+def selection_to_dict(selection: Cut) -> dict:
+    """The inverse of :func:`selection_from_dict` for selections that a selection file can express (a conjunction of
+    at most one status cut, energy window, pixel-count cut, elongation cut and region, plus column ranges).
+
+    Raises
+    ------
+    SelectionError
+        For ``|``, ``~`` or repeated cuts of one kind, which a selection file cannot express.
+    """
+    config: dict = {}
+    for part in selection.steps():
+        if isinstance(part, StatusCut):
+            key = "status"
+            value = True
+        elif isinstance(part, EnergyWindow):
+            key, value = "energy_kev", _bounds(part)
+        elif isinstance(part, PixelCountCut):
+            key, value = "n_pixels", _bounds(part)
+        elif isinstance(part, ElongationCut):
+            key, value = "elongation", _bounds(part)
+        elif isinstance(part, CircleRegion | RectangleRegion | HexagonRegion):
+            key = "region"
+            value = {f.name: getattr(part, f.name) for f in fields(part)}
+            if isinstance(part, HexagonRegion):
+                value["rotation_deg"] = float(np.rad2deg(value.pop("rotation_rad")))
+            value = {"shape": {CircleRegion: "circle", RectangleRegion: "rectangle",
+                               HexagonRegion: "hexagon"}[type(part)], **value}
+        elif type(part) is RangeCut:
+            ranges = config.setdefault("range", {})
+            if part.column in ranges:
+                raise SelectionError(f"a selection file holds one range per column ('{part.column}' twice)")
+            ranges[part.column] = _bounds(part)
+            continue
+        else:
+            raise SelectionError(f"a selection file cannot express {part.describe()!r} ({type(part).__name__})")
+        if key in config:
+            raise SelectionError(f"a selection file holds one '{key}' cut (got two)")
+        config[key] = value
+        if key == "status" and part.allowed_bits:
+            from ..recon.status import Status
+
+            config["allowed_status"] = [bit.name for bit in Status if bit & part.allowed_bits]
+    return config
+
+
+def write_selection(selection: Cut, path) -> None:
+    """Write a selection file that :func:`read_selection` reads back into the same selection."""
+    from .._toml import dumps
+
+    with open(path, "w", encoding="utf-8") as handle:
+        handle.write(dumps(selection_to_dict(selection), header="trackfit event selection"))
