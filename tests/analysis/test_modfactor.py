@@ -51,3 +51,19 @@ def test_unknown_angle_and_partial_polarization():
 def test_curve_needs_points():
     with pytest.raises(ValueError, match="at least one"):
         fit_modulation_factor_curve([])
+
+
+def test_curve_error_matches_point_errors():
+    # a straight line through two points (weighted least squares): at the points the curve's error equals the
+    # points' errors, in between it is smaller than the larger one (error propagation, any statistics textbook)
+    from trackfit.analysis.modfactor import ModulationFactorPoint
+
+    points = [ModulationFactorPoint(energy_kev=3.0, value=0.3, error=0.02, n_events=1),
+              ModulationFactorPoint(energy_kev=6.0, value=0.5, error=0.01, n_events=1)]
+    curve = fit_modulation_factor_curve(points)
+    assert curve.error([3.0, 6.0]) == pytest.approx([0.02, 0.01], rel=1e-9)
+    assert curve.error(4.5) < 0.02
+    # four points on the same line at equal errors: the mean error shrinks like 1/sqrt(2) at the centre
+    many = [ModulationFactorPoint(energy_kev=e, value=0.1 * np.log(e), error=0.01, n_events=1)
+            for e in (3.0, 3.0, 6.0, 6.0)]
+    assert fit_modulation_factor_curve(many).error(3.0) == pytest.approx(0.01 / np.sqrt(2), rel=1e-9)

@@ -117,6 +117,20 @@ class ModulationFactorCurve:
         value = np.polynomial.polynomial.polyval(np.log(clamped), self.coefficients)
         return np.where(np.isfinite(energy), np.clip(value, 1e-3, 1.0), np.nan)
 
+    def error(self, energy_kev) -> np.ndarray:
+        """Standard error of the curve at each energy, from the errors of the measured points (weighted least
+        squares covariance ``(A^T W A)^-1``); the curve is exact only if its functional form is."""
+        energy = np.clip(np.asarray(energy_kev, dtype=float), *self.energy_range_kev)
+        x_pts = np.log(np.asarray(self.points_energy_kev, dtype=float))
+        err = np.asarray(self.points_error, dtype=float)
+        degree = len(self.coefficients) - 1
+        if x_pts.size == 0:
+            return np.full(energy.shape, np.nan)
+        design = np.column_stack([x_pts**k for k in range(degree + 1)]) / err[:, None]
+        cov = np.linalg.pinv(design.T @ design)
+        basis = np.stack([np.log(energy) ** k for k in range(degree + 1)], axis=-1)
+        return np.sqrt(np.einsum("...i,ij,...j->...", basis, cov, basis))
+
     def residuals(self) -> np.ndarray:
         """(measured - curve) / error at the measured points."""
         return (np.asarray(self.points_value) - self(self.points_energy_kev)) / np.asarray(self.points_error)

@@ -51,10 +51,19 @@ class PolarizationMeasurement:
     modulation: ModulationFit | None
     bands: StokesBands | None = None
     background_cut_flow: CutFlow | None = None
+    modulation_factor_rel_err: float = 0.0
     settings: dict = field(default_factory=dict)
 
+    @property
+    def degree_calibration_err(self) -> float:
+        """Scale uncertainty of the degree from the modulation-factor calibration (``p sigma_mu / mu``; not
+        included in ``stokes.degree_err``, common to all runs analysed with the same calibration)."""
+        return self.stokes.degree * self.modulation_factor_rel_err
+
     def to_dict(self) -> dict:
-        out = {"stokes": self.stokes.to_dict(), "cut_flow": self.cut_flow.to_dict(), "settings": self.settings}
+        out = {"stokes": self.stokes.to_dict(), "cut_flow": self.cut_flow.to_dict(), "settings": self.settings,
+               "modulation_factor_rel_err": self.modulation_factor_rel_err,
+               "degree_calibration_err": self.degree_calibration_err}
         if self.modulation is not None:
             m = self.modulation
             out["modulation_curve"] = {"modulation": m.modulation, "modulation_err": m.modulation_err,
@@ -68,7 +77,11 @@ class PolarizationMeasurement:
         return out
 
     def __repr__(self):
-        parts = [repr(self.stokes), "", "Cut flow", str(self.cut_flow)]
+        parts = [repr(self.stokes)]
+        if self.modulation_factor_rel_err > 0:
+            parts.append(f"  {'degree calibration err':<24}± {100 * self.degree_calibration_err:.2f} % "
+                         f"(modulation factor known to {100 * self.modulation_factor_rel_err:.1f} %)")
+        parts += ["", "Cut flow", str(self.cut_flow)]
         if self.background_cut_flow is not None:
             parts += ["", "Background cut flow", str(self.background_cut_flow)]
         if self.bands is not None:
@@ -199,6 +212,15 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
             results.append(StokesResult.from_sums(band_sums, confidence_level=confidence_level,
                                                   label=f"{lo:g}–{hi:g} keV") if band_sums.i > 0 else None)
         bands = StokesBands(edges_kev=edges, results=tuple(results))
+    mu_rel_err = 0.0
+    if modulation_factor is None and calibration is not None and calibration.modulation_factor is not None:
+        curve = calibration.modulation_factor
+        energy = np.asarray(events["energy_kev"], dtype=float)
+        w = np.ones(energy.size) if weights is None else np.asarray(weights, dtype=float)
+        good = np.isfinite(energy) & np.isfinite(w) & np.isfinite(np.asarray(events["emission_rad"], dtype=float))
+        if np.any(good) and w[good].sum() > 0:  # relative error of the effective mu, fully correlated over events
+            rel = curve.error(energy[good]) / curve(energy[good])
+            mu_rel_err = float(np.average(rel, weights=w[good]))
     phi = np.asarray(events["emission_rad"], dtype=float)
     modulation = modulation_curve(phi, n_bins=n_bins, weights=weights) if np.isfinite(phi).sum() >= 2 else None
     settings = {"selection": selection.to_dict(), "weighting": weighting if isinstance(weighting, str) else "array",
@@ -207,4 +229,5 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
                 else background_selection.to_dict(), "background_scale": background_scale, "n_bins": n_bins,
                 "confidence_level": confidence_level}
     return PolarizationMeasurement(stokes=result, cut_flow=flow, modulation=modulation, bands=bands,
-                                   background_cut_flow=background_flow, settings=settings)
+                                   background_cut_flow=background_flow, modulation_factor_rel_err=mu_rel_err,
+                                   settings=settings)
