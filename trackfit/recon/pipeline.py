@@ -297,10 +297,14 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
             "input_n_events": len(reader),
             "batch_size": int(batch_size),
         })
-        writer = TableWriter(out_path, provenance=provenance, compression=compression, overwrite=overwrite,
-                             chunk_rows=min(int(batch_size), 65_536))
-        fingerprint = _Fingerprint()
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
+        try:
+            writer = TableWriter(out_path, provenance=provenance, compression=compression, overwrite=overwrite,
+                                 chunk_rows=65_536)
+        except BaseException:
+            close_bar()
+            raise
+        fingerprint = _Fingerprint()
 
         # reader thread (read-ahead of two batches): reads, decompresses and checksums the next batches;
         # writer thread: appends the results in batch order. Only result columns wait for the writer, so about
