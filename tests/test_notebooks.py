@@ -62,3 +62,22 @@ def test_cut_tuning(tmp_path):
     config, selection = read_settings(settings)
     assert ReconConfig.read_toml(settings) == config  # what `trackfit reconstruct --config` reads
     assert "4.5 <= energy_kev < 7.5 keV" in selection.describe()  # the energy window of CUT_GRID
+
+
+def test_calibration_report(tmp_path):
+    run_notebook("03_calibration_report.ipynb", {"OUTPUT_DIR": str(tmp_path)}, tmp_path)
+    summary = json.loads((tmp_path / "calibration_report.json").read_text())
+    from trackfit.analysis import Calibration
+
+    calibration = Calibration.load(summary["calibration"])
+    assert calibration.parts() == summary["parts"] == ["energy_scale", "gain_map", "modulation_factor",
+                                                       "spurious_modulation"]
+    (e_low, mu_low, err_low), (e_high, mu_high, err_high) = summary["modulation_points"]
+    # PHYSICS.md §9 sanity band for He/DME 20/80, 1 atm, 1 cm (from memory, +-0.1): ~0.32 at 3.7, ~0.47 at 5.9 keV
+    assert e_low == pytest.approx(3.7, abs=0.2) and abs(mu_low - 0.32) < 0.1
+    assert e_high == pytest.approx(5.9, abs=0.2) and abs(mu_high - 0.47) < 0.1
+    assert mu_high > mu_low  # the modulation factor rises with energy (PHYSICS.md §2 pitfalls)
+    # the calibration recovers the known beams of its own runs (100 % polarized, at 0 and 30 degrees)
+    for check in summary["checks"].values():
+        assert abs(check["degree"] - check["true_degree"]) < 3 * check["degree_err"]
+        assert abs(check["angle_deg"] - check["true_angle_deg"]) < 5.0
