@@ -98,7 +98,7 @@ class _Prepared:
         if threads <= 1 or n < 2 * threads or pool is None:
             reconstruct_range(0, n, *common)
         else:
-            edges = np.linspace(0, n, threads + 1).astype(np.int64)
+            edges = np.linspace(0, n, 4 * threads + 1).astype(np.int64)  # small pieces balance the load
             futures = [pool.submit(reconstruct_range, int(a), int(b), *common)
                        for a, b in zip(edges[:-1], edges[1:], strict=True)]
             for future in futures:
