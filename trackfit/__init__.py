@@ -8,7 +8,13 @@ What to use when
 * :func:`reconstruct` / :func:`reconstruct_file` - events to energy, conversion point and emission angle
   (an :class:`EventTable`, or an event-table file read back with :func:`read_table`); settings in
   :class:`ReconConfig`.
-* ``trackfit.plotting`` - event displays (imported lazily, needs matplotlib).
+* ``trackfit.analysis`` - selections, line fits, gain maps, Stokes parameters, MDP, modulation factor, spurious
+  modulation, calibration files.
+* ``trackfit.simulate`` - the photoelectron track simulator (presets, configs, runs).
+* ``trackfit.tuning`` - sweeps of reconstruction settings and cuts (quality factor, residual modulation).
+* ``trackfit.plotting`` - event displays.
+
+The four subpackages above load on first use (``trackfit.analysis.mdp99(...)`` works after ``import trackfit``).
 """
 
 from importlib.metadata import PackageNotFoundError, version
@@ -23,6 +29,17 @@ from .hexgrid import HexGrid
 from .io import RawEventWriter, RawFormatError, open_raw, write_raw
 from .io.table import EventTable, TableFormatError, read_table, write_table
 from .recon import ReconConfig, reconstruct, reconstruct_file
+
+_LAZY_SUBMODULES = ("analysis", "simulate", "tuning", "plotting")
+
+
+def __getattr__(name):
+    if name in _LAZY_SUBMODULES:
+        import importlib
+
+        return importlib.import_module(f"{__name__}.{name}")
+    raise AttributeError(f"module 'trackfit' has no attribute {name!r}")
+
 
 __all__ = [
     "__version__",
