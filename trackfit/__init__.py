@@ -14,7 +14,7 @@ What to use when
 * ``trackfit.tuning`` - sweeps of reconstruction settings and cuts (quality factor, residual modulation).
 * ``trackfit.plotting`` - event displays.
 
-The four subpackages above load on first use (``trackfit.analysis.mdp99(...)`` works after ``import trackfit``).
+Everything loads on first use (``trackfit.analysis.mdp99(...)`` works after ``import trackfit``).
 """
 
 from importlib.metadata import PackageNotFoundError, version
@@ -24,21 +24,32 @@ try:
 except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0+unknown"
 
-from .events import Event, EventBatch, EventBatchError
-from .hexgrid import HexGrid
-from .io import RawEventWriter, RawFormatError, open_raw, write_raw
-from .io.table import EventTable, TableFormatError, read_table, write_table
-from .recon import ReconConfig, reconstruct, reconstruct_file
-
-_LAZY_SUBMODULES = ("analysis", "simulate", "tuning", "plotting")
+#: public names -> the module that defines them; loaded on first access, so that ``import trackfit`` (and
+#: ``trackfit --version``) stays light and numba/h5py load only when used
+_EXPORTS = {
+    "Event": "events", "EventBatch": "events", "EventBatchError": "events",
+    "HexGrid": "hexgrid",
+    "RawEventWriter": "io.raw", "RawFormatError": "io.raw", "open_raw": "io.raw", "write_raw": "io.raw",
+    "EventTable": "io.table", "TableFormatError": "io.table", "read_table": "io.table", "write_table": "io.table",
+    "ReconConfig": "recon", "reconstruct": "recon", "reconstruct_file": "recon",
+}
+_LAZY_SUBMODULES = ("analysis", "simulate", "tuning", "plotting", "recon", "io", "events", "hexgrid")
 
 
 def __getattr__(name):
-    if name in _LAZY_SUBMODULES:
-        import importlib
+    import importlib
 
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(f"{__name__}.{_EXPORTS[name]}"), name)
+        globals()[name] = value
+        return value
+    if name in _LAZY_SUBMODULES:
         return importlib.import_module(f"{__name__}.{name}")
     raise AttributeError(f"module 'trackfit' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_EXPORTS) | set(_LAZY_SUBMODULES))
 
 
 __all__ = [

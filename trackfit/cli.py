@@ -42,6 +42,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    argv = sys.argv[1:] if argv is None else list(argv)
+    if argv == ["--version"]:  # answered before any subcommand (and numba) is imported
+        print(f"trackfit {_version()}")
+        return 0
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
