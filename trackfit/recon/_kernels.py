@@ -187,18 +187,28 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
                     top += 1
                 # neighbours in the rows above and below: columns (c, c+1) from a shifted row, (c-1, c) otherwise
                 ca = cc if ((r0 + rr) & 1) == parity else cc - 1
-                for dr in (-1, 1):
-                    r2 = rr + dr
-                    if r2 < 0 or r2 >= nr:
-                        continue
-                    base = r2 * nc
-                    for c2 in (ca, ca + 1):
-                        if c2 >= 0 and c2 < nc:
-                            q = base + c2
-                            if label[q] == 0:
-                                label[q] = n_clusters
-                                stack[top] = q
-                                top += 1
+                left_ok = ca >= 0
+                right_ok = ca + 1 < nc
+                if rr > 0:
+                    q = p - nc + ca - cc
+                    if left_ok and label[q] == 0:
+                        label[q] = n_clusters
+                        stack[top] = q
+                        top += 1
+                    if right_ok and label[q + 1] == 0:
+                        label[q + 1] = n_clusters
+                        stack[top] = q + 1
+                        top += 1
+                if rr < nr - 1:
+                    q = p + nc + ca - cc
+                    if left_ok and label[q] == 0:
+                        label[q] = n_clusters
+                        stack[top] = q
+                        top += 1
+                    if right_ok and label[q + 1] == 0:
+                        label[q + 1] = n_clusters
+                        stack[top] = q + 1
+                        top += 1
             cluster_charge[n_clusters] = charge
             if charge > best_charge:
                 best_charge = charge
