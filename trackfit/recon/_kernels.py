@@ -113,6 +113,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
     pq = np.empty(max_area, np.float64)
     use_mask = mask.size > 0
     nan = np.nan
+    inv_scale = 1.0 / weight_scale_mm  # weights exp(-D * inv_scale), as in the reference
 
     for i in range(lo, hi):
         s0 = start[i]
@@ -289,10 +290,37 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             status |= _COLLINEAR
         ca = math.cos(axis)
         sa = math.sin(axis)
+        # third moment, and in the same loop the candidates for the conversion point on both sides of the
+        # barycentre (r_min..r_max * sqrt(mom2_long) away); the sign of mom3_long then picks the start side
+        rlo2 = r_min * r_min * m2l
+        rhi2 = r_max * r_max * m2l
         m3 = 0.0
+        pos_q = 0.0
+        pos_x = 0.0
+        pos_y = 0.0
+        pos_n = 0
+        neg_q = 0.0
+        neg_x = 0.0
+        neg_y = 0.0
+        neg_n = 0
         for j in range(n):
-            u = (px[j] - bx) * ca + (py[j] - by) * sa
-            m3 += pq[j] * u * u * u
+            dx = px[j] - bx
+            dy = py[j] - by
+            u = dx * ca + dy * sa
+            q = pq[j]
+            m3 += q * u * u * u
+            d2 = dx * dx + dy * dy
+            if d2 >= rlo2 and d2 <= rhi2:
+                if u > 0.0:
+                    pos_q += q
+                    pos_x += q * px[j]
+                    pos_y += q * py[j]
+                    pos_n += 1
+                elif u < 0.0:
+                    neg_q += q
+                    neg_x += q * px[j]
+                    neg_y += q * py[j]
+                    neg_n += 1
         m3 /= qsum
         out_f[i, _F_AXIS] = axis
         out_f[i, _F_M3] = m3
@@ -300,24 +328,13 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             out_f[i, _F_EMIS] = axis
             out_i[i, _I_STATUS] = status | _NO_SKEW
             continue
-        side = 1.0 if m3 > 0.0 else -1.0
 
-        # ---- conversion point: start side, r_min..r_max * sqrt(mom2_long) from the barycentre
-        rlo2 = r_min * r_min * m2l
-        rhi2 = r_max * r_max * m2l
-        cq = 0.0
-        cx = 0.0
-        cy = 0.0
-        n_conv = 0
-        for j in range(n):
-            dx = px[j] - bx
-            dy = py[j] - by
-            d2 = dx * dx + dy * dy
-            if (dx * ca + dy * sa) * side > 0.0 and d2 >= rlo2 and d2 <= rhi2:
-                cq += pq[j]
-                cx += pq[j] * px[j]
-                cy += pq[j] * py[j]
-                n_conv += 1
+        # ---- conversion point: charge barycentre of the candidates on the start side (sign of mom3_long)
+        side = 1.0 if m3 > 0.0 else -1.0
+        if side > 0.0:
+            cq, cx, cy, n_conv = pos_q, pos_x, pos_y, pos_n
+        else:
+            cq, cx, cy, n_conv = neg_q, neg_x, neg_y, neg_n
         out_i[i, _I_NCONV] = n_conv
         if n_conv == 0:
             out_f[i, _F_EMIS] = _wrap_pi(axis + (_PI if side > 0.0 else 0.0))
@@ -335,7 +352,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         for j in range(n):
             dx = px[j] - cx
             dy = py[j] - cy
-            w = pq[j] * math.exp(-math.sqrt(dx * dx + dy * dy) / weight_scale_mm)
+            w = pq[j] * math.exp(-math.sqrt(dx * dx + dy * dy) * inv_scale)
             px[j] = dx  # keep offsets from the conversion point, and the weight in pq
             py[j] = dy
             pq[j] = w

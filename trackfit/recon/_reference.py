@@ -144,7 +144,7 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
     out.update(conv_x_mm=cx, conv_y_mm=cy)
 
     ex, ey = x - cx, y - cy
-    w = q * np.exp(-np.hypot(ex, ey) / config.weight_scale_mm)
+    w = q * np.exp(-np.hypot(ex, ey) * (1.0 / config.weight_scale_mm))
     wsum = w.sum()
     emission, fallback = axis, True
     if wsum > 0 and np.isfinite(wsum):
