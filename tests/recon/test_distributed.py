@@ -1,0 +1,49 @@
+"""Reconstruction of several files as tasks of a Dask distributed cluster (in-process cluster for the test)."""
+
+import numpy as np
+import pytest
+
+import trackfit
+from trackfit.recon import ReconConfig
+from trackfit.recon.distributed import reconstruct_on_cluster
+
+distributed = pytest.importorskip("dask.distributed", reason="needs the optional extra trackfit[dask]")
+
+
+@pytest.fixture
+def raw_files(tmp_path, make_batch):
+    paths = []
+    for k in range(3):
+        path = tmp_path / f"run{k}.h5"
+        trackfit.write_raw(path, make_batch(200 + 50 * k, k))
+        paths.append(path)
+    return paths
+
+
+def test_cluster_gives_the_same_tables_as_one_process(raw_files, tmp_path):
+    config = ReconConfig(threshold_adc=50.0)
+    jobs = [(raw, tmp_path / f"{raw.stem}_cluster.h5") for raw in raw_files]
+    seen = []
+    with distributed.Client(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None) as client:
+        results = reconstruct_on_cluster(jobs, config, client=client, on_result=seen.append)
+    assert [r.raw_path for r in results] == [str(raw) for raw in raw_files]
+    assert sorted(r.raw_path for r in seen) == sorted(str(raw) for raw in raw_files)
+    for (raw, out), result in zip(jobs, results, strict=True):
+        assert not result.error
+        local = tmp_path / f"{raw.stem}_local.h5"
+        trackfit.reconstruct_file(raw, local, config, progress=False)
+        a, b = trackfit.read_table(out), trackfit.read_table(local)
+        assert len(a) == result.n_rows == len(trackfit.open_raw(raw))
+        for column in a.columns:
+            assert np.array_equal(a[column], b[column], equal_nan=a[column].dtype.kind == "f"), column
+
+
+def test_a_bad_file_is_reported_and_the_others_finish(raw_files, tmp_path):
+    bad = tmp_path / "broken.h5"
+    bad.write_text("not an HDF5 file")
+    jobs = [(raw_files[0], tmp_path / "a.h5"), (bad, tmp_path / "b.h5")]
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=None) as client:
+        good, failed = reconstruct_on_cluster(jobs, client=client)
+    assert not good.error and good.n_rows == 200
+    assert "not a readable HDF5 file" in failed.error and str(bad) in failed.error
+    assert "FAILED" in str(failed)
