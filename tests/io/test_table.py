@@ -174,3 +174,10 @@ def test_unknown_columns_and_wrong_files(tmp_path):
         write_table(path, _columns())
     write_table(path, _columns(3), overwrite=True)
     assert len(read_table(path)) == 3
+
+
+def test_provenance_lists_of_strings_round_trip(tmp_path):
+    table = EventTable({"energy_kev": np.array([5.9, 3.7], np.float32)})
+    path = write_table(tmp_path / "t.h5", table, provenance={"runs": ["a.h5", "b.h5"], "cuts_kev": [2.0, 8.0]})
+    provenance = read_table(path).provenance
+    assert provenance["runs"] == ["a.h5", "b.h5"] and provenance["cuts_kev"] == [2.0, 8.0]

@@ -14,15 +14,14 @@ What to use when
 
 from __future__ import annotations
 
-import datetime as _dt
 import html
-import os
 from collections.abc import Mapping
 from pathlib import Path
 
 import h5py
 import numpy as np
 
+from ._partial import PartialFileWriter
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 
 __all__ = [
@@ -77,10 +76,6 @@ class TableFormatError(ValueError):
         self.dataset = dataset
         where = f"file '{self.path}'" + (f", dataset '{dataset}'" if dataset is not None else "")
         super().__init__(f"{where}: {message}")
-
-
-def _now_utc() -> str:
-    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _decode(value):
@@ -310,13 +305,13 @@ def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
             group.attrs[key] = value
         elif isinstance(value, list | tuple | np.ndarray):
             arr = np.asarray(value)
-            group.attrs[key] = arr.astype(str) if arr.dtype.kind == "U" else arr
+            group.attrs[key] = arr.astype(object).astype(h5py.string_dtype()) if arr.dtype.kind == "U" else arr
         else:
             raise TypeError(f"provenance value {key!r} must be a str, number or list of them "
                             f"(got {type(value).__name__}); store structures as TOML or JSON text")
 
 
-class TableWriter:
+class TableWriter(PartialFileWriter):
     """Write an event-table file (format version 1) by appending column batches.
 
     Parameters
@@ -340,43 +335,31 @@ class TableWriter:
     ...     writer.append({"energy_kev": energies, "status": status})
     """
 
+    format_name = FORMAT_NAME
+    format_version = FORMAT_VERSION
+
     def __init__(self, path, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
                  chunk_rows: int = DEFAULT_CHUNK_ROWS, descriptions=None, overwrite: bool = False):
-        self.path = Path(path)
-        if self.path.exists() and not overwrite:
-            raise FileExistsError(f"'{self.path}' exists; pass overwrite=True to replace it")
+        from .. import __version__
+
         if int(chunk_rows) < 1:
             raise ValueError(f"'chunk_rows' must be >= 1 (got {chunk_rows})")
         self.compression = compression
         self._filters = dataset_filter_options(compression)
         self._chunk_rows = int(chunk_rows)
         self._descriptions = dict(descriptions or {})
-        self._partial = self.path.with_name(self.path.name + ".partial")
-        self._file = h5py.File(self._partial, "w")
         self._columns: list[str] | None = None
         self._dtypes: dict[str, np.dtype] = {}
         self._n = 0
-        f = self._file
-        f.attrs["trackfit_format"] = FORMAT_NAME
-        f.attrs["format_version"] = FORMAT_VERSION
-        from .. import __version__
-
-        f.attrs["created_by"] = f"trackfit {__version__}"
-        f.attrs["created_utc"] = _now_utc()
-        f.create_group("events", track_order=True)
-        self._provenance = f.create_group("provenance")
-        _write_provenance(self._provenance, {"trackfit_version": __version__, "created_utc": _now_utc(),
-                                             **(provenance or {})})
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, exc_type, exc, tb):
-        if exc_type is None:
-            self.close()
-        else:
+        f = self._open(path, overwrite=overwrite)
+        try:
+            f.create_group("events", track_order=True)
+            self._provenance = f.create_group("provenance")
+            _write_provenance(self._provenance, {"trackfit_version": __version__,
+                                                 "created_utc": f.attrs["created_utc"], **(provenance or {})})
+        except BaseException:
             self.abort()
-        return False
+            raise
 
     def __len__(self):
         return self._n
@@ -408,7 +391,7 @@ class TableWriter:
         The first call fixes the column names and dtypes; later calls must give the same names, and values
         are cast to the first dtypes (safely: a cast that changes values raises ValueError).
         """
-        if self._file is None:
+        if self.closed:
             raise ValueError(f"table writer for '{self.path}' is closed")
         arrays = {name: _as_column(name, values) for name, values in columns.items()}
         lengths = {len(a) for a in arrays.values()}
@@ -441,26 +424,12 @@ class TableWriter:
 
     def set_provenance(self, **values) -> None:
         """Add or replace entries of ``/provenance`` (e.g. the input fingerprint, known only at the end)."""
-        if self._file is None:
+        if self.closed:
             raise ValueError(f"table writer for '{self.path}' is closed")
         _write_provenance(self._provenance, values)
 
-    def close(self) -> Path:
-        """Finish the file and give it its final name; returns the path."""
-        if self._file is None:
-            return self.path
+    def _finish(self) -> None:
         self._file["events"].attrs["n_rows"] = self._n
-        self._file.close()
-        self._file = None
-        os.replace(self._partial, self.path)
-        return self.path
-
-    def abort(self) -> None:
-        """Close and delete the partial file."""
-        if self._file is not None:
-            self._file.close()
-            self._file = None
-        self._partial.unlink(missing_ok=True)
 
 
 def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMPRESSION,

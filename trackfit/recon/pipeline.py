@@ -9,7 +9,6 @@ memory is bounded by the batch size, not the file size.
 
 from __future__ import annotations
 
-import datetime as _dt
 import os
 import queue
 import threading
@@ -21,6 +20,7 @@ import numpy as np
 
 from ..events import EventBatch
 from ..hexgrid import HexGrid
+from ..io._partial import now_utc
 from ..io.compression import DEFAULT_COMPRESSION
 from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range
@@ -53,10 +53,6 @@ TABLE_COLUMNS: dict[str, np.dtype] = {
     "peak_adc": np.dtype(np.int16),
     "n_conv_pixels": np.dtype(np.int32),
 }
-
-
-def _now_utc() -> str:
-    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _as_config(config) -> ReconConfig:
@@ -127,7 +123,7 @@ def _base_provenance(config: ReconConfig, grid: HexGrid) -> dict:
 
     return {
         "trackfit_version": __version__,
-        "created_utc": _now_utc(),
+        "created_utc": now_utc(),
         "config_toml": config.to_toml(),
         "grid_pitch_mm": grid.pitch_mm,
         "grid_n_columns": grid.n_columns,
@@ -357,7 +353,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
             writer.set_provenance(
                 input_fingerprint=fingerprint.hexdigest(),
                 n_malformed_events=len(reader.bad_events),
-                finished_utc=_now_utc(),
+                finished_utc=now_utc(),
             )
         except BaseException:
             writer.abort()
