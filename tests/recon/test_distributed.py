@@ -47,3 +47,16 @@ def test_a_bad_file_is_reported_and_the_others_finish(raw_files, tmp_path):
     assert not good.error and good.n_rows == 200
     assert "not a readable HDF5 file" in failed.error and str(bad) in failed.error
     assert "FAILED" in str(failed)
+
+
+def test_command_line_on_a_local_cluster(raw_files, tmp_path, capsys):
+    from trackfit.cli import main
+
+    out_dir = tmp_path / "tables"
+    assert main(["reconstruct", *map(str, raw_files), "--out-dir", str(out_dir), "--scheduler", "local",
+                 "--no-progress"]) == 0
+    text = capsys.readouterr()
+    for raw in raw_files:
+        table = trackfit.read_table(out_dir / f"{raw.stem}_events.h5")
+        assert len(table) == len(trackfit.open_raw(raw))
+        assert f"{raw.stem}_events.h5: {len(table)} events" in text.out + text.err

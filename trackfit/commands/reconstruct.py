@@ -1,8 +1,8 @@
 """``trackfit reconstruct RAW... (-o OUT | --out-dir DIR)``: raw event files to event tables.
 
 One file runs in this process with kernel threads; several files run in parallel in a process pool started with
-the ``spawn`` method (numba's threading layers may hang in a forked child). One progress bar counts the events of
-all files.
+the ``spawn`` method (numba's threading layers may hang in a forked child), or, with ``--scheduler``, as tasks of a
+Dask distributed cluster. One progress bar counts the events of all files.
 """
 
 from __future__ import annotations
@@ -26,6 +26,9 @@ def register(subparsers):
     parser.add_argument("--config", metavar="TOML", help="reconstruction settings (trackfit.ReconConfig keys)")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
                         help="files reconstructed in parallel, one process each (default 1)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run one task per file on a Dask distributed cluster: a scheduler address "
+                        "(tcp://host:8786) or 'local'; every worker must see the paths (needs trackfit[dask])")
     parser.add_argument("--threads", type=int, default=None, metavar="N",
                         help="kernel threads per file (default: all CPUs with one worker, 1 with several)")
     parser.add_argument("--batch-size", type=int, default=None, metavar="N", help="events per batch")
@@ -113,7 +116,20 @@ def run(args) -> int:
                desc="reconstruct")
     failures = []
     try:
-        if workers == 1:
+        if args.scheduler:
+            from ..recon.distributed import reconstruct_on_cluster
+
+            options["threads"] = args.threads or 1
+
+            def report(result):
+                bar.update(result.n_rows)
+                if result.error:
+                    failures.append(f"{result.raw_path}: {result.error}")
+                else:
+                    bar.write(str(result))
+
+            reconstruct_on_cluster(jobs, config, scheduler=args.scheduler, on_result=report, **options)
+        elif workers == 1:
             from ..recon import reconstruct_file
 
             for raw, out in jobs:
