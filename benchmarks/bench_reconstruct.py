@@ -143,7 +143,7 @@ def main(argv=None):
         t = time.perf_counter()
         raw = make_file(tmp / "bench.h5", args.events)
         print(f"made {args.events} toy events ({ROI_SHAPE[0]} x {ROI_SHAPE[1]} pixel ROIs) in "
-              f"{time.perf_counter() - t:.1f} s; file {raw.stat().st_size / 1e6:.0f} MB (lzf); "
+              f"{time.perf_counter() - t:.1f} s; file {raw.stat().st_size / 1e6:.0f} MB; "
               f"{os.cpu_count()} CPUs; load average {os.getloadavg()[0]:.2f}")
         with open_raw(raw) as reader:
             batch = reader.read_all(with_truth=False)
