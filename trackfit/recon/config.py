@@ -18,25 +18,11 @@ from pathlib import Path
 
 import numpy as np
 
+from .._toml import dumps
+
 __all__ = ["ReconConfig", "SECOND_PASS_CENTRES"]
 
 SECOND_PASS_CENTRES = ("conversion_point", "weighted_barycentre")
-
-
-def _toml_value(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        if math.isinf(value):
-            return "inf" if value > 0 else "-inf"
-        return repr(value)
-    if isinstance(value, str):
-        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
-    if isinstance(value, tuple | list):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {type(value).__name__} to TOML")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -196,10 +182,7 @@ class ReconConfig:
 
     def to_toml(self) -> str:
         """The full configuration as TOML text (every key, in a ``[recon]`` table)."""
-        lines = ["# trackfit reconstruction settings (trackfit.ReconConfig)", "[recon]"]
-        for name, value in self.to_dict().items():
-            lines.append(f"{name} = {_toml_value(value)}")
-        return "\n".join(lines) + "\n"
+        return dumps({"recon": self.to_dict()}, header="trackfit reconstruction settings (trackfit.ReconConfig)")
 
     @classmethod
     def from_toml(cls, text: str, *, source: str = "TOML text") -> ReconConfig:
