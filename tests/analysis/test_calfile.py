@@ -111,8 +111,8 @@ def test_format_errors(tmp_path, calibration):
         Calibration.load(path)
     other = tmp_path / "other.h5"
     with h5py.File(other, "w") as f:
-        f.attrs["format"] = "something else"
-    with pytest.raises(CalibrationFormatError, match="'format'"):
+        f.attrs["trackfit_format"] = "event-table"
+    with pytest.raises(CalibrationFormatError, match="'trackfit_format' must be 'calibration'"):
         Calibration.load(other)
     with pytest.raises(FileNotFoundError):
         Calibration.load(tmp_path / "missing.h5")

@@ -8,7 +8,6 @@ event table (:meth:`Calibration.apply`).
 from __future__ import annotations
 
 import dataclasses
-import datetime as _dt
 import html
 import json
 from collections.abc import Mapping
@@ -17,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..io._partial import PartialFileWriter, now_utc
 from .gainmap import GainMap
 from .gaintime import GainDrift
 from .modfactor import ModulationFactorCurve
@@ -26,7 +26,7 @@ from .spurious import SpuriousMap
 __all__ = ["CALIBRATION_FORMAT", "CALIBRATION_FORMAT_VERSION", "Calibration", "CalibrationFormatError",
            "make_provenance"]
 
-CALIBRATION_FORMAT = "trackfit-calibration"
+CALIBRATION_FORMAT = "calibration"
 CALIBRATION_FORMAT_VERSION = 1
 _PARTS = ("energy_scale", "gain_map", "gain_drift", "modulation_factor", "spurious_modulation")
 
@@ -48,7 +48,17 @@ def _version() -> str:
 def make_provenance(*, runs=(), cuts=None, weights="none", **extra) -> dict:
     """Provenance of a calibration part: input runs, cuts (plain dict), weights, version, time."""
     return {"runs": [str(r) for r in runs], "cuts": cuts, "weights": weights, "trackfit_version": _version(),
-            "created_utc": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), **extra}
+            "created_utc": now_utc(), **extra}
+
+
+class _CalibrationWriter(PartialFileWriter):
+    """The file of :meth:`Calibration.save`: written as ``<path>.partial`` and renamed when complete."""
+
+    format_name = CALIBRATION_FORMAT
+    format_version = CALIBRATION_FORMAT_VERSION
+
+    def __init__(self, path, *, overwrite: bool):
+        self.file = self._open(path, overwrite=overwrite)
 
 
 def _json_default(value):
@@ -158,23 +168,12 @@ class Calibration:
     # ------------------------------------------------------------------------------------------ files
     def save(self, path, *, overwrite: bool = False) -> Path:
         """Write the calibration to an HDF5 file (``docs/calibration-format.md``)."""
-        import h5py
-
-        path = Path(path)
-        if path.exists() and not overwrite:
-            raise FileExistsError(f"{path} exists; pass overwrite=True (or --overwrite) to replace it")
-        tmp = path.with_name(path.name + ".partial")
-        with h5py.File(tmp, "w") as f:
-            f.attrs["format"] = CALIBRATION_FORMAT
-            f.attrs["format_version"] = CALIBRATION_FORMAT_VERSION
-            f.attrs["trackfit_version"] = _version()
-            f.attrs["created_utc"] = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+        with _CalibrationWriter(path, overwrite=overwrite) as writer:
             for name in self.parts():
-                group = f.create_group(name)
+                group = writer.file.create_group(name)
                 group.attrs["provenance"] = json.dumps(self.provenance.get(name, {}), default=_json_default)
                 _WRITERS[name](group, getattr(self, name))
-        tmp.replace(path)
-        return path
+        return writer.path
 
     @classmethod
     def load(cls, path) -> Calibration:
@@ -189,10 +188,11 @@ class Calibration:
         except OSError as err:
             raise CalibrationFormatError(path, f"not an HDF5 file ({err})") from None
         with f:
-            fmt = f.attrs.get("format")
+            fmt = f.attrs.get("trackfit_format")
             fmt = fmt.decode() if isinstance(fmt, bytes) else fmt
             if fmt != CALIBRATION_FORMAT:
-                raise CalibrationFormatError(path, f"attribute 'format' must be {CALIBRATION_FORMAT!r} (got {fmt!r})")
+                raise CalibrationFormatError(path, f"attribute 'trackfit_format' must be {CALIBRATION_FORMAT!r} "
+                                                   f"(got {fmt!r})")
             version = int(f.attrs.get("format_version", -1))
             if version != CALIBRATION_FORMAT_VERSION:
                 raise CalibrationFormatError(path, f"format_version {version} is not supported (this trackfit "
