@@ -69,6 +69,21 @@ def _principal_axis(mxx, myy, mxy):
 
 
 @jit
+def _moments_about(px, py, w, n, cx, cy):
+    """Weighted sums of dx^2, dy^2 and dx dy of the first n points about (cx, cy) (not normalised)."""
+    sxx = 0.0
+    syy = 0.0
+    sxy = 0.0
+    for j in range(n):
+        dx = px[j] - cx
+        dy = py[j] - cy
+        sxx += w[j] * dx * dx
+        syy += w[j] * dy * dy
+        sxy += w[j] * dx * dy
+    return sxx, syy, sxy
+
+
+@jit
 def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch_mm, row_pitch_mm, x0_mm, y0_mm,
                       parity, threshold, min_pixels, r_min, r_max, weight_scale_mm, centre_on_conversion,
                       counts_per_kev, saturation_adc, out_f, out_i):
@@ -268,15 +283,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             out_f[i, _F_M2T] = 0.0
             out_i[i, _I_STATUS] = status | _SINGLE
             continue
-        mxx = 0.0
-        myy = 0.0
-        mxy = 0.0
-        for j in range(n):
-            dx = px[j] - bx
-            dy = py[j] - by
-            mxx += pq[j] * dx * dx
-            myy += pq[j] * dy * dy
-            mxy += pq[j] * dx * dy
+        mxx, myy, mxy = _moments_about(px, py, pq, n, bx, by)
         mxx /= qsum
         myy /= qsum
         mxy /= qsum
@@ -369,15 +376,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             if not centre_on_conversion:
                 ux = wx / wsum
                 uy = wy / wsum
-            sxx = 0.0
-            syy = 0.0
-            sxy = 0.0
-            for j in range(n):
-                dx = px[j] - ux
-                dy = py[j] - uy
-                sxx += pq[j] * dx * dx
-                syy += pq[j] * dy * dy
-                sxy += pq[j] * dx * dy
+            sxx, syy, sxy = _moments_about(px, py, pq, n, ux, uy)
             sxx /= wsum
             syy /= wsum
             sxy /= wsum
