@@ -28,6 +28,7 @@ def test_info_summarises_the_file(small_raw_file, capsys):
     text = capsys.readouterr().out
     assert "events        500" in text and "64 x 48 hexagonal pixels, pitch 50.0 um" in text
     assert "every scanned event is well formed" in text and "energy_kev, shell" in text
+    assert "run           source       = test generator" in text
     assert main(["info", str(path), "--json"]) == 0
     summary = json.loads(capsys.readouterr().out)
     sums = np.add.reduceat(batch.signal.astype(np.int64), batch.start[:-1])

@@ -60,11 +60,14 @@ class RawSummary:
             f"peak pixel    largest pixel value {self.peak_adc_max} ADC counts",
             f"truth         {', '.join(self.truth_names) if self.truth_names else 'none (measured data)'}",
         ]
+        width = max((len(key) for key in self.run_info), default=0)
         for key, value in self.run_info.items():
             text = str(value)
-            if "\n" in text or len(text) > 70:
-                text = text.splitlines()[0][:60] + " ..."
-            lines.append(f"run: {key:<10}{text}")
+            if "\n" in text:
+                text = f"({len(text.splitlines())} lines of text)"
+            elif len(text) > 70:
+                text = text[:66] + " ..."
+            lines.append(f"run           {key:<{width}} = {text}")
         if self.file_problems:
             lines += [f"PROBLEM       {p}" for p in self.file_problems]
         if self.bad_events:
