@@ -115,3 +115,20 @@ def test_bad_grids_are_named():
         sweep_settings(POLARIZED, cut_grid={"energy": [(1, 2)]}, n_events=10)
     with pytest.raises(ValueError, match="r_min"):
         sweep_settings(POLARIZED, recon_grid={"r_min": [-1.0]}, n_events=10)
+
+
+def test_settings_file_drives_reconstruct_and_polarization_commands(sweep, tmp_path, capsys):
+    import json
+
+    from trackfit.cli import main
+
+    settings = sweep.write_toml(tmp_path / "tuned.toml")
+    table = tmp_path / "pol_events.h5"
+    assert main(["reconstruct", str(POLARIZED), "-o", str(table), "--config", str(settings), "--no-progress"]) == 0
+    assert main(["polarization", str(table), "--cuts", str(settings), "--modulation-factor", "0.5",
+                 "--json", str(tmp_path / "result.json")]) == 0
+    result = json.loads((tmp_path / "result.json").read_text())
+    config, selection = read_settings(settings)
+    expected = selection.mask(trackfit.read_table(table)).sum()
+    assert result["stokes"]["n_events"] == expected
+    assert trackfit.read_table(table).provenance["config_toml"] == config.to_toml()

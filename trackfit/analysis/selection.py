@@ -556,7 +556,11 @@ def selection_from_dict(config: Mapping, *, source: str = "selection") -> Cut:
 
 
 def read_selection(path) -> Cut:
-    """Read a selection TOML file (see :func:`selection_from_dict` for the keys)."""
+    """Read a selection TOML file (see :func:`selection_from_dict` for the keys).
+
+    A settings file of :mod:`trackfit.tuning` (tables ``[recon]`` and ``[selection]``) is read too: its
+    ``[selection]`` table is the selection.
+    """
     import tomllib
 
     with open(path, "rb") as handle:
@@ -564,6 +568,8 @@ def read_selection(path) -> Cut:
             config = tomllib.load(handle)
         except tomllib.TOMLDecodeError as err:
             raise SelectionError(f"{path}: not valid TOML: {err}") from None
+    if isinstance(config.get("selection"), dict) and set(config) <= {"recon", "selection"}:
+        return selection_from_dict(config["selection"], source=f"{path} [selection]")
     return selection_from_dict(config, source=str(path))
 
 
