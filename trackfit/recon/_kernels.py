@@ -193,6 +193,8 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
                 charge += signal[s0 + p]
                 rr = int((p + 0.5) * inv_nc)
                 cc = p - rr * nc
+                # The six neighbour pushes are written out on purpose: a shared helper function (even with
+                # inline="always") made this kernel 4-5x slower (measured 80k vs 380k events/s).
                 if cc > 0 and label[p - 1] == 0:
                     label[p - 1] = n_clusters
                     stack[top] = p - 1
