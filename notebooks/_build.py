@@ -73,7 +73,7 @@ table
 """),
     ("code", """
 ok = table["status"] == 0
-elongation = table["mom2_long"][ok] / np.maximum(table["mom2_trans"][ok], 1e-12)
+elongation = table["m2_major_mm2"][ok] / np.maximum(table["m2_minor_mm2"][ok], 1e-12)
 fig, axes = plt.subplots(1, 3, figsize=(13, 3.6), layout="constrained")
 axes[0].hist(table["pulse_height"][ok], bins=120, histtype="step")
 axes[0].set_xlabel("pulse height [ADC counts]")
@@ -81,7 +81,7 @@ axes[0].set_ylabel("events")
 axes[1].hist(table["n_pixels"][ok], bins=60, histtype="step")
 axes[1].set_xlabel("pixels in the main cluster")
 axes[2].hist(np.clip(elongation, 1, 10), bins=60, histtype="step")
-axes[2].set_xlabel("elongation mom2_long / mom2_trans")
+axes[2].set_xlabel("elongation m2_major_mm2 / m2_minor_mm2")
 fig.savefig(output / "distributions.png", dpi=90)
 """),
     ("md", "## Status flags: how many events carry each, and what it means"),
@@ -116,7 +116,7 @@ UNPOLARIZED = "../sample_data/fe55_flatfield_unpolarized.h5"  # a similar energy
 POLARIZATION_DEGREE = 1.0
 LINE_ENERGY_KEV = 5.895       # energy of the main line of the unpolarized run (Mn K-alpha of Fe-55)
 N_EVENTS = 9000               # events of each run kept in memory
-RECON_GRID = {"r_min": [1.2, 1.5, 1.8], "weight_scale_mm": [0.03, 0.05, 0.08]}
+RECON_GRID = {"start_search_inner_rms": [1.2, 1.5, 1.8], "second_pass_length_mm": [0.03, 0.05, 0.08]}
 CUT_GRID = {"energy_kev": [(4.5, 7.5)], "elongation_min": [None, 1.2, 1.5], "fiducial_radius_mm": [None, 1.5]}
 MAX_RESIDUAL_SIGMA = 3.0      # best point: residual modulation below this many standard errors
 OUTPUT_DIR = "tuning_output"

@@ -80,15 +80,15 @@ def test_draw_event_draws_every_pixel_and_the_overlay(tmp_path):
     path = _track_file(tmp_path)
     with open_raw(path) as reader:
         event = reader[0]
-    result = {"bary_x_mm": float(event.x_mm.mean()), "bary_y_mm": float(event.y_mm.mean()), "axis_rad": 0.0,
-              "mom2_long": 0.01, "conv_x_mm": float(event.x_mm[0]), "conv_y_mm": float(event.y_mm[0]),
+    result = {"centroid_x_mm": float(event.x_mm.mean()), "centroid_y_mm": float(event.y_mm.mean()), "axis_rad": 0.0,
+              "m2_major_mm2": 0.01, "conv_x_mm": float(event.x_mm[0]), "conv_y_mm": float(event.y_mm[0]),
               "emission_rad": 0.3}
     ax = draw_event(event, result=result)
     polys = ax.collections[0]
     assert len(polys.get_paths()) == event.signal.size
     assert np.allclose(polys.get_array(), np.clip(event.signal, 0, None))
     labels = ax.get_legend_handles_labels()[1]
-    assert labels == ["principal axis", "barycentre", "conversion point", "emission direction"]
+    assert labels == ["principal axis", "centroid", "conversion point", "emission direction"]
     assert ax.get_aspect() == 1.0
     # threshold: pixels at or below it become outlines in a second collection
     ax2 = draw_event(event, threshold_adc=0)

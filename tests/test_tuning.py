@@ -18,7 +18,8 @@ BASE = ReconConfig(counts_per_kev=3300.0)
 
 @pytest.fixture(scope="module")
 def sweep():
-    return sweep_settings(POLARIZED, UNPOLARIZED, recon_grid={"r_min": [1.2, 1.6], "weight_scale_mm": [0.04, 0.07]},
+    return sweep_settings(POLARIZED, UNPOLARIZED,
+                          recon_grid={"start_search_inner_rms": [1.2, 1.6], "second_pass_length_mm": [0.04, 0.07]},
                           cut_grid={"energy_kev": [(4.0, 8.0)], "elongation_min": [None, 1.3],
                                     "fiducial_radius_mm": [None, 1.0]},
                           base_config=BASE, n_events=3000)
@@ -33,11 +34,11 @@ def test_every_point_is_evaluated_and_reconstruction_reruns_only_per_setting(mon
         return original(batch, config)
 
     monkeypatch.setattr(trackfit.recon, "reconstruct", counting)
-    result = sweep_settings(POLARIZED, UNPOLARIZED, recon_grid={"r_min": [1.2, 1.6, 2.0]},
+    result = sweep_settings(POLARIZED, UNPOLARIZED, recon_grid={"start_search_inner_rms": [1.2, 1.6, 2.0]},
                             cut_grid={"elongation_min": [None, 1.2, 1.5, 2.0]}, base_config=BASE, n_events=500)
     assert len(result) == 12
     assert len(calls) == 3 * 2  # one reconstruction of each run per reconstruction setting, none per cut
-    assert sorted({c.r_min for c in calls}) == [1.2, 1.6, 2.0]
+    assert sorted({c.start_search_inner_rms for c in calls}) == [1.2, 1.6, 2.0]
 
 
 def test_metrics_match_direct_formulas(sweep):
@@ -54,7 +55,7 @@ def test_metrics_match_direct_formulas(sweep):
     keep = table["status"] == 0
     keep &= (table["energy_kev"] >= 4.0) & (table["energy_kev"] < 8.0)
     if not math.isnan(row["elongation_min"]):
-        keep &= table["mom2_long"] >= row["elongation_min"] * table["mom2_trans"]
+        keep &= table["m2_major_mm2"] >= row["elongation_min"] * table["m2_minor_mm2"]
     if not math.isnan(row["fiducial_radius_mm"]):
         keep &= np.hypot(table["conv_x_mm"], table["conv_y_mm"]) <= row["fiducial_radius_mm"]
     phi = table["emission_rad"][keep].astype(float)
@@ -90,7 +91,8 @@ def test_residual_constraint_is_respected(sweep):
     significance = sweep.columns["residual_modulation"] / sweep.columns["residual_modulation_err"]
     limit = float(np.sort(significance)[len(significance) // 2])
     constrained = sweep_settings(POLARIZED, UNPOLARIZED,
-                                 recon_grid={"r_min": [1.2, 1.6], "weight_scale_mm": [0.04, 0.07]},
+                                 recon_grid={"start_search_inner_rms": [1.2, 1.6],
+                                             "second_pass_length_mm": [0.04, 0.07]},
                                  cut_grid={"energy_kev": [(4.0, 8.0)], "elongation_min": [None, 1.3],
                                            "fiducial_radius_mm": [None, 1.0]},
                                  base_config=BASE, n_events=3000, max_residual_sigma=limit)
@@ -105,7 +107,7 @@ def test_display_and_plot(sweep):
     assert text.startswith("SweepResult: 16 points") and f"*{sweep.best_index} " in text
     assert "<table>" in sweep._repr_html_()
     fig = sweep.plot()
-    assert len(fig.axes) == 4 * 4  # four metrics x four swept parameters (r_min, weight, elongation, radius)
+    assert len(fig.axes) == 4 * 4  # four metrics x four swept parameters (inner radius, weight, elongation, radius)
 
 
 def test_bad_grids_are_named():
@@ -113,8 +115,8 @@ def test_bad_grids_are_named():
         sweep_settings(POLARIZED, recon_grid={"r_mni": [1.0]}, n_events=10)
     with pytest.raises(ValueError, match=r"unknown cut parameter\(s\) \['energy'\]"):
         sweep_settings(POLARIZED, cut_grid={"energy": [(1, 2)]}, n_events=10)
-    with pytest.raises(ValueError, match="r_min"):
-        sweep_settings(POLARIZED, recon_grid={"r_min": [-1.0]}, n_events=10)
+    with pytest.raises(ValueError, match="start_search_inner_rms"):
+        sweep_settings(POLARIZED, recon_grid={"start_search_inner_rms": [-1.0]}, n_events=10)
 
 
 def test_settings_file_drives_reconstruct_and_polarization_commands(sweep, tmp_path, capsys):

@@ -14,7 +14,7 @@ from .events import Event
 __all__ = ["draw_event", "draw_event_gallery"]
 
 #: colours of the overlay, chosen to read on the perceptually uniform ``cividis`` map
-_OVERLAY = {"barycentre": "#d62728", "conversion": "#ff7f0e", "axis": "black", "emission": "#e377c2"}
+_OVERLAY = {"centroid": "#d62728", "conversion": "#ff7f0e", "axis": "black", "emission": "#e377c2"}
 
 
 def _scalar(result, key, default=np.nan):
@@ -33,9 +33,9 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     ax : matplotlib Axes, optional
         Drawn into a new figure when omitted.
     result : mapping, optional
-        The event's reconstruction, e.g. ``table.row(i)`` of an event table. Uses the keys ``bary_x_mm``,
-        ``bary_y_mm`` (barycentre, a cross), ``conv_x_mm``, ``conv_y_mm`` (conversion point, a circle),
-        ``axis_rad`` with ``mom2_long`` (first-pass principal axis, dashed, +-3 sqrt(mom2_long) long) and
+        The event's reconstruction, e.g. ``table.row(i)`` of an event table. Uses the keys ``centroid_x_mm``,
+        ``centroid_y_mm`` (centroid, a cross), ``conv_x_mm``, ``conv_y_mm`` (conversion point, a circle),
+        ``axis_rad`` with ``m2_major_mm2`` (first-pass principal axis, dashed, +-3 sqrt(m2_major_mm2) long) and
         ``emission_rad`` (emission direction, an arrow from the conversion point). Missing or NaN keys are skipped.
     threshold_adc : float, optional
         Pixels at or below this value are drawn as outlines only.
@@ -80,16 +80,16 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
 
 
 def _draw_overlay(ax, result):
-    bx, by = _scalar(result, "bary_x_mm"), _scalar(result, "bary_y_mm")
+    bx, by = _scalar(result, "centroid_x_mm"), _scalar(result, "centroid_y_mm")
     cx, cy = _scalar(result, "conv_x_mm"), _scalar(result, "conv_y_mm")
     axis, emission = _scalar(result, "axis_rad"), _scalar(result, "emission_rad")
-    length = 3.0 * np.sqrt(max(_scalar(result, "mom2_long", 0.0), 0.0)) or 0.1
+    length = 3.0 * np.sqrt(max(_scalar(result, "m2_major_mm2", 0.0), 0.0)) or 0.1
     if np.isfinite([bx, by, axis]).all():
         dx, dy = length * np.cos(axis), length * np.sin(axis)
         ax.plot([bx - dx, bx + dx], [by - dy, by + dy], ls="--", lw=1.0, color=_OVERLAY["axis"],
                 label="principal axis")
     if np.isfinite([bx, by]).all():
-        ax.plot(bx, by, marker="x", ms=9, mew=2, ls="none", color=_OVERLAY["barycentre"], label="barycentre")
+        ax.plot(bx, by, marker="x", ms=9, mew=2, ls="none", color=_OVERLAY["centroid"], label="centroid")
     if np.isfinite([cx, cy]).all():
         ax.plot(cx, cy, marker="o", ms=8, mfc="none", mew=2, ls="none", color=_OVERLAY["conversion"],
                 label="conversion point")

@@ -1,7 +1,8 @@
 """Tuning reconstruction settings and selection cuts on a polarized and an unpolarized run.
 
 What to use when: :func:`sweep_settings` evaluates every combination of a grid of reconstruction parameters
-(:class:`~trackfit.ReconConfig` fields such as ``threshold_adc``, ``r_min``, ``r_max``, ``weight_scale_mm``) and
+(:class:`~trackfit.ReconConfig` fields such as ``threshold_adc``, ``start_search_inner_rms``,
+``start_search_outer_rms``, ``second_pass_length_mm``) and
 selection cuts (energy window, minimum elongation, minimum pixel count, fiducial radius) on in-memory subsamples of
 a 100 %-polarized (or known-degree) run and an unpolarized run. The kernels run again only when a reconstruction
 parameter changes; cut-only points reuse the event tables. For every point it reports:
@@ -38,7 +39,7 @@ __all__ = ["sweep_settings", "SweepResult", "read_settings", "CUT_PARAMETERS", "
 #: cut parameters the sweep understands, with their meaning
 CUT_PARAMETERS = {
     "energy_kev": "energy window (low_kev, high_kev) on energy_kev",
-    "elongation_min": "minimum elongation mom2_long / mom2_trans",
+    "elongation_min": "minimum elongation m2_major_mm2 / m2_minor_mm2",
     "n_pixels_min": "minimum number of pixels in the main cluster",
     "fiducial_radius_mm": "conversion point within this radius of the chip centre, mm",
 }
@@ -274,7 +275,8 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
     unpolarized : EventBatch, RawEventReader or path, optional
         An unpolarized run at a similar energy, for the residual (spurious) modulation.
     recon_grid : mapping of str to sequence
-        ReconConfig field -> values to try, e.g. ``{"r_min": [1.2, 1.5, 1.8], "weight_scale_mm": [0.03, 0.05]}``.
+        ReconConfig field -> values to try, e.g.
+        ``{"start_search_inner_rms": [1.2, 1.5, 1.8], "second_pass_length_mm": [0.03, 0.05]}``.
     cut_grid : mapping of str to sequence
         Keys of :data:`CUT_PARAMETERS` -> values, e.g. ``{"energy_kev": [(5.0, 7.0)], "elongation_min": [1, 1.5]}``.
         A value ``None`` means "no such cut". Every point keeps only fully reconstructed events (``status == 0``).

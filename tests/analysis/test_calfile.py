@@ -61,7 +61,7 @@ def test_round_trip(tmp_path, calibration):
 
 def test_apply(calibration):
     table = {"pulse_height": np.array([4500.0, 5500.0, 5000.0, 5000.0]),
-             "bary_x_mm": np.array([-1.0, -1.0, 1.0, 1.0]), "bary_y_mm": np.array([-1.0, 1.0, -1.0, 1.0]),
+             "centroid_x_mm": np.array([-1.0, -1.0, 1.0, 1.0]), "centroid_y_mm": np.array([-1.0, 1.0, -1.0, 1.0]),
              "conv_x_mm": np.array([-1.0, -1.0, 1.0, 1.0]), "conv_y_mm": np.array([-1.0, 1.0, -1.0, 1.0]),
              "energy_kev": np.zeros(4), "time_s": np.array([0.0, 50.0, 100.0, 200.0])}
     out = calibration.apply(table)
@@ -76,15 +76,15 @@ def test_apply(calibration):
     drifted = calibration.apply(table, use_gain_drift=True)
     np.testing.assert_allclose(drifted["gain_relative"] / out["gain_relative"], [1.05, 1.0, 0.95, 0.95])
     with pytest.raises(KeyError, match="pulse_height"):
-        calibration.apply({"bary_x_mm": np.zeros(1), "bary_y_mm": np.zeros(1)})
+        calibration.apply({"centroid_x_mm": np.zeros(1), "centroid_y_mm": np.zeros(1)})
 
 
 def test_measure_polarization_with_calibration(calibration):
     rng = np.random.default_rng(80)
     n = 100_000
-    table = {"pulse_height": rng.normal(5000, 300, n), "bary_x_mm": rng.uniform(0, 2, n),
-             "bary_y_mm": rng.uniform(0, 2, n), "status": np.zeros(n, np.uint16)}
-    table["conv_x_mm"], table["conv_y_mm"] = table["bary_x_mm"], table["bary_y_mm"]
+    table = {"pulse_height": rng.normal(5000, 300, n), "centroid_x_mm": rng.uniform(0, 2, n),
+             "centroid_y_mm": rng.uniform(0, 2, n), "status": np.zeros(n, np.uint16)}
+    table["conv_x_mm"], table["conv_y_mm"] = table["centroid_x_mm"], table["centroid_y_mm"]
     energy = 5.895 / 5000 * table["pulse_height"]
     mu = 0.1 + 0.2 * np.log(energy)
     q_sp = calibration.spurious_modulation.at(energy, table["conv_x_mm"], table["conv_y_mm"])

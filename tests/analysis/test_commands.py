@@ -25,18 +25,18 @@ def make_table(rng, n, *, energy_kev=None, modulation=0.0, angle_rad=0.0, spot_m
         x, y = rng.uniform(-4, 4, n), rng.uniform(-4, 4, n)
     else:
         x, y = rng.normal(0, spot_mm, n), rng.normal(0, spot_mm, n)
-    mom2_trans = rng.uniform(0.001, 0.004, n)
+    m2_minor_mm2 = rng.uniform(0.001, 0.004, n)
     return {
         "trigger_id": np.arange(n, dtype=np.int64), "time_s": np.sort(rng.uniform(0, 100, n)),
         "status": np.where(rng.random(n) < 0.02, 4, 0).astype(np.uint16),
         "n_pixels": rng.integers(20, 300, n).astype(np.int32), "n_clusters": np.ones(n, np.int16),
         "pulse_height": ph.astype(np.float32), "energy_kev": (ph / 2000.0).astype(np.float32),  # uncalibrated
-        "bary_x_mm": x.astype(np.float32), "bary_y_mm": y.astype(np.float32),
+        "centroid_x_mm": x.astype(np.float32), "centroid_y_mm": y.astype(np.float32),
         "conv_x_mm": x.astype(np.float32), "conv_y_mm": y.astype(np.float32),
         "axis_rad": np.zeros(n, np.float32),
         "emission_rad": modulated_angles(rng, n, modulation, angle_rad).astype(np.float32),
-        "mom2_long": (mom2_trans * rng.uniform(1.5, 5, n)).astype(np.float32),
-        "mom2_trans": mom2_trans.astype(np.float32), "mom3_long": np.zeros(n, np.float32),
+        "m2_major_mm2": (m2_minor_mm2 * rng.uniform(1.5, 5, n)).astype(np.float32),
+        "m2_minor_mm2": m2_minor_mm2.astype(np.float32), "m3_major_mm3": np.zeros(n, np.float32),
         "peak_adc": np.full(n, 100, np.int16),
     }
 

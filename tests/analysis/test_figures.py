@@ -55,7 +55,7 @@ def test_all_figures(tmp_path):
     x, y = rng.uniform(-2, 2, ph.size), rng.uniform(-2, 2, ph.size)
     gain = fit_gain_map(x, y, ph, x_edges_mm=cell_edges(-2, 2, 2.0), y_edges_mm=cell_edges(-2, 2, 2.0))
     fig = figures.plot_gain_map(gain)
-    assert fig.axes[0].get_xlabel() == "barycentre x [mm]"
+    assert fig.axes[0].get_xlabel() == "centroid x [mm]"
     figures.save_figure(fig, tmp_path / "gain.png")
     assert len(list(tmp_path.glob("*.png"))) == 7
     assert plt.get_fignums() == []  # save_figure closes

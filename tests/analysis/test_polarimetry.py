@@ -20,8 +20,8 @@ def table():
     phi = np.concatenate([modulated_angles(rng, n_src, mu * 0.5, np.deg2rad(20.0)),
                           modulated_angles(rng, n_bkg, mu * 0.4, np.deg2rad(-60.0))])
     return {"emission_rad": phi, "energy_kev": energy, "conv_x_mm": x, "conv_y_mm": y,
-            "status": np.zeros(x.size, np.uint16), "mom2_long": np.full(x.size, 2.0),
-            "mom2_trans": np.full(x.size, 1.0)}
+            "status": np.zeros(x.size, np.uint16), "m2_major_mm2": np.full(x.size, 2.0),
+            "m2_minor_mm2": np.full(x.size, 1.0)}
 
 
 def test_background_subtraction_per_band(table):

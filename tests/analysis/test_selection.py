@@ -27,12 +27,12 @@ def table():
         | np.where(rng.random(n) < 0.05, int(Status.TOO_FEW_PIXELS), 0).astype(np.uint16),
         "energy_kev": rng.uniform(1, 10, n).astype(np.float32),
         "n_pixels": rng.integers(1, 500, n).astype(np.int32),
-        "mom2_long": rng.uniform(0.001, 0.02, n),
-        "mom2_trans": rng.uniform(0.0, 0.01, n),
+        "m2_major_mm2": rng.uniform(0.001, 0.02, n),
+        "m2_minor_mm2": rng.uniform(0.0, 0.01, n),
         "conv_x_mm": rng.uniform(-8, 8, n),
         "conv_y_mm": rng.uniform(-8, 8, n),
-        "bary_x_mm": rng.uniform(-8, 8, n),
-        "bary_y_mm": rng.uniform(-8, 8, n),
+        "centroid_x_mm": rng.uniform(-8, 8, n),
+        "centroid_y_mm": rng.uniform(-8, 8, n),
     }
 
 
@@ -44,13 +44,13 @@ def test_masks_match_numpy(table):
     assert np.array_equal(EnergyWindow(low_kev=2, high_kev=8).mask(t), (t["energy_kev"] >= 2) & (t["energy_kev"] < 8))
     assert np.array_equal(PixelCountCut(low=20).mask(t), t["n_pixels"] >= 20)
     with np.errstate(divide="ignore"):
-        ratio = t["mom2_long"] / t["mom2_trans"]
+        ratio = t["m2_major_mm2"] / t["m2_minor_mm2"]
     assert np.array_equal(ElongationCut(low=1.5).mask(t), ratio >= 1.5)
     circle = CircleRegion(x_mm=1, y_mm=-2, radius_mm=3).mask(t)
     assert np.array_equal(circle, np.hypot(t["conv_x_mm"] - 1, t["conv_y_mm"] + 2) <= 3)
-    rect = RectangleRegion(x_min_mm=-1, x_max_mm=2, y_min_mm=0, y_max_mm=5, position="barycentre").mask(t)
-    assert np.array_equal(rect, (t["bary_x_mm"] >= -1) & (t["bary_x_mm"] < 2) & (t["bary_y_mm"] >= 0)
-                          & (t["bary_y_mm"] < 5))
+    rect = RectangleRegion(x_min_mm=-1, x_max_mm=2, y_min_mm=0, y_max_mm=5, position="centroid").mask(t)
+    assert np.array_equal(rect, (t["centroid_x_mm"] >= -1) & (t["centroid_x_mm"] < 2) & (t["centroid_y_mm"] >= 0)
+                          & (t["centroid_y_mm"] < 5))
 
 
 def test_hexagon_area(table):

@@ -101,7 +101,7 @@ def test_write_read_round_trip(tmp_path, compression):
     some = read_table(path, ["status", "trigger_id"], start=100, stop=110)
     assert some.columns == ["status", "trigger_id"] and list(some["trigger_id"]) == list(range(200, 220, 2))
     with h5py.File(path) as f:  # the layout of docs/table-format.md
-        assert f.attrs["trackfit_format"] == "event-table" and f.attrs["format_version"] == 1
+        assert f.attrs["trackfit_format"] == "event-table" and f.attrs["format_version"] == 2
         ds = f["events/status"]
         assert ds.chunks is not None and ds.maxshape == (None,)
         assert (ds.compression is None) == (compression == "none")
@@ -142,7 +142,7 @@ def _corrupt(path, action):
 
 @pytest.mark.parametrize("action, dataset, text", [
     (lambda f: f.attrs.__setitem__("trackfit_format", "raw-events"), "/", "must be 'event-table'"),
-    (lambda f: f.attrs.__setitem__("format_version", 2), "/", "unknown format_version 2"),
+    (lambda f: f.attrs.__setitem__("format_version", 3), "/", "unknown format_version 3"),
     (lambda f: f.attrs.__delitem__("format_version"), "/", "missing root attribute 'format_version'"),
     (lambda f: f.__delitem__("events"), "/events", "missing group"),
     (lambda f: (f["events"].__delitem__("status"), f["events"].create_dataset("status", data=np.zeros(3))),
@@ -181,3 +181,19 @@ def test_provenance_lists_of_strings_round_trip(tmp_path):
     path = write_table(tmp_path / "t.h5", table, provenance={"runs": ["a.h5", "b.h5"], "cuts_kev": [2.0, 8.0]})
     provenance = read_table(path).provenance
     assert provenance["runs"] == ["a.h5", "b.h5"] and provenance["cuts_kev"] == [2.0, 8.0]
+
+
+def test_version_1_tables_are_read_with_the_new_column_names(tmp_path):
+    # a file as trackfit 0.1 wrote it: format_version 1 and the old names of five columns
+    old = {"status": np.zeros(4, np.uint16), "bary_x_mm": np.arange(4, dtype=np.float32),
+           "bary_y_mm": -np.arange(4, dtype=np.float32), "mom2_long": np.full(4, 0.04, np.float32),
+           "mom2_trans": np.full(4, 0.01, np.float32), "mom3_long": np.full(4, 1e-3, np.float32)}
+    path = write_table(tmp_path / "v1.h5", old)
+    with h5py.File(path, "r+") as f:
+        f.attrs["format_version"] = 1
+    table = read_table(path)
+    assert table.columns == ["status", "centroid_x_mm", "centroid_y_mm", "m2_major_mm2", "m2_minor_mm2",
+                             "m3_major_mm3"]
+    assert np.array_equal(table["centroid_y_mm"], old["bary_y_mm"]) and table["m2_major_mm2"][0] == np.float32(0.04)
+    assert table.provenance["read_from_format_version"] == 1
+    assert read_table(path, ["m3_major_mm3"]).columns == ["m3_major_mm3"]

@@ -9,14 +9,14 @@ GRID = HexGrid()
 
 #: float columns and the status bits that may explain a NaN in them
 NAN_EXPLAINED_BY = {
-    "bary_x_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
-    "bary_y_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
+    "centroid_x_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
+    "centroid_y_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
     "conv_x_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
     "conv_y_mm": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
-    "mom2_long": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
-    "mom2_trans": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
+    "m2_major_mm2": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
+    "m2_minor_mm2": Status.MALFORMED_INPUT | Status.NO_SIGNAL,
     "axis_rad": Status.NO_EMISSION,
-    "mom3_long": Status.NO_EMISSION,
+    "m3_major_mm3": Status.NO_EMISSION,
     "emission_rad": Status.NO_EMISSION,
     "pulse_height": Status(0),
     "energy_kev": Status(0),

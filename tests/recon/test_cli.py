@@ -20,7 +20,7 @@ def raws(tmp_path):
 
 def test_one_file_with_a_config(raws, tmp_path, capsys):
     paths, batches = raws
-    config = ReconConfig(threshold_adc=30, weight_scale_mm=0.03)
+    config = ReconConfig(threshold_adc=30, second_pass_length_mm=0.03)
     config_path = config.write_toml(tmp_path / "recon.toml")
     out = tmp_path / "table.h5"
     assert main(["reconstruct", str(paths[0]), "-o", str(out), "--config", str(config_path), "--no-progress"]) == 0

@@ -12,8 +12,9 @@ from trackfit.recon.status import STATUS_DOCS, Status, explain_status, status_co
 def test_defaults_and_toml_round_trip(tmp_path):
     config = ReconConfig()
     assert ReconConfig.from_toml(config.to_toml()) == config
-    custom = ReconConfig(threshold_adc=12.5, min_pixels=3, r_min=1.2, r_max=4.0, weight_scale_mm=0.04,
-                         second_pass_centre="weighted_barycentre", counts_per_kev=55.0, saturation_adc=4000,
+    custom = ReconConfig(threshold_adc=12.5, min_pixels=3, start_search_inner_rms=1.2, start_search_outer_rms=4.0,
+                         second_pass_length_mm=0.04,
+                         second_pass_centre="weighted_centroid", counts_per_kev=55.0, saturation_adc=4000,
                          bad_pixels=[(3, 4), (1, 2), (3, 4)])
     path = custom.write_toml(tmp_path / "recon.toml")
     again = ReconConfig.read_toml(path)
@@ -27,32 +28,48 @@ def test_defaults_and_toml_round_trip(tmp_path):
 def test_frozen_and_replace():
     config = ReconConfig()
     with pytest.raises(dataclasses.FrozenInstanceError):
-        config.r_min = 2.0
-    assert dataclasses.replace(config, r_min=1.0).r_min == 1.0
+        config.start_search_inner_rms = 2.0
+    assert dataclasses.replace(config, start_search_inner_rms=1.0).start_search_inner_rms == 1.0
 
 
 def test_unknown_keys_are_rejected_with_the_valid_ones(tmp_path):
     path = tmp_path / "bad.toml"
-    path.write_text("[recon]\nthreshold = 3\nr_min = 1.0\n")
+    path.write_text("[recon]\nthreshold = 3\nstart_search_inner_rms = 1.0\n")
     with pytest.raises(ValueError) as err:
         ReconConfig.read_toml(path)
     message = str(err.value)
     assert "unknown key(s) ['threshold']" in message and "threshold_adc" in message and str(path) in message
     with pytest.raises(ValueError, match="not valid TOML"):
-        ReconConfig.from_toml("r_min = = 2")
+        ReconConfig.from_toml("start_search_inner_rms = = 2")
     with pytest.raises(FileNotFoundError):
         ReconConfig.read_toml(tmp_path / "missing.toml")
+
+
+@pytest.mark.parametrize("text, new", [
+    ("r_min = 1.2", "'r_min' is now 'start_search_inner_rms'"),
+    ("r_max = 4.0", "'r_max' is now 'start_search_outer_rms'"),
+    ("weight_scale_mm = 0.04", "'weight_scale_mm' is now 'second_pass_length_mm'"),
+    ('second_pass_centre = "weighted_barycentre"', "second_pass_centre = 'weighted_barycentre' is now "
+                                                   "'weighted_centroid'"),
+])
+def test_old_setting_names_are_refused_with_the_new_name(tmp_path, text, new):
+    path = tmp_path / "old.toml"
+    path.write_text(f"[recon]\n{text}\n")
+    with pytest.raises(ValueError) as err:
+        ReconConfig.read_toml(path)
+    assert new in str(err.value) and str(path) in str(err.value)
 
 
 @pytest.mark.parametrize("kwargs, text", [
     ({"threshold_adc": -1}, "'threshold_adc' must be >= 0 (got -1.0)"),
     ({"min_pixels": 0}, "'min_pixels' must be >= 1"),
     ({"min_pixels": 2.5}, "'min_pixels' must be an integer"),
-    ({"r_min": 2.0, "r_max": 1.0}, "'r_max' must be > r_min"),
-    ({"weight_scale_mm": 0}, "'weight_scale_mm' must be > 0"),
+    ({"start_search_inner_rms": 2.0, "start_search_outer_rms": 1.0},
+     "'start_search_outer_rms' must be > start_search_inner_rms"),
+    ({"second_pass_length_mm": 0}, "'second_pass_length_mm' must be > 0"),
     ({"second_pass_centre": "centre"}, "'second_pass_centre' must be one of"),
     ({"counts_per_kev": float("nan")}, "'counts_per_kev' must be finite"),
-    ({"r_min": "1"}, "'r_min' must be a number"),
+    ({"start_search_inner_rms": "1"}, "'start_search_inner_rms' must be a number"),
     ({"bad_pixels": [(1, 2, 3)]}, "'bad_pixels' must be a list of (column, row)"),
     ({"bad_pixels": [(-1, 2)]}, "non-negative"),
 ])

@@ -27,7 +27,7 @@ def test_nothing_above_threshold():
     row, _ = _run({(C, R): 10, (C + 1, R): 5, (C + 2, R): -7})  # threshold_adc = 10: a pixel needs > 10
     assert row["status"] == Status.NO_SIGNAL
     assert row["n_pixels"] == 0 and row["n_clusters"] == 0 and row["pulse_height"] == 0 and row["energy_kev"] == 0
-    assert np.isnan(row["bary_x_mm"]) and np.isnan(row["emission_rad"])
+    assert np.isnan(row["centroid_x_mm"]) and np.isnan(row["emission_rad"])
 
 
 def test_empty_roi_and_all_negative_roi():
@@ -42,15 +42,15 @@ def test_single_pixel():
     row, cols = _run({(C, R): 500})
     assert _has(row, Status.SINGLE_PIXEL, Status.TOO_FEW_PIXELS)
     x, y = GRID.pixel_centre_mm(C, R)
-    assert np.isclose(cols["bary_x_mm"][0], x, atol=1e-12) and np.isclose(cols["bary_y_mm"][0], y, atol=1e-12)
-    assert (cols["conv_x_mm"][0], cols["conv_y_mm"][0]) == (cols["bary_x_mm"][0], cols["bary_y_mm"][0])
-    assert row["mom2_long"] == 0 and row["mom2_trans"] == 0
+    assert np.isclose(cols["centroid_x_mm"][0], x, atol=1e-12) and np.isclose(cols["centroid_y_mm"][0], y, atol=1e-12)
+    assert (cols["conv_x_mm"][0], cols["conv_y_mm"][0]) == (cols["centroid_x_mm"][0], cols["centroid_y_mm"][0])
+    assert row["m2_major_mm2"] == 0 and row["m2_minor_mm2"] == 0
     assert np.isnan(row["axis_rad"]) and np.isnan(row["emission_rad"])
     assert row["pulse_height"] == 500 and row["peak_adc"] == 500 and row["n_pixels"] == 1
 
 
 def test_two_unequal_pixels_point_from_the_light_to_the_heavy_one():
-    # the light pixel is the start: its distance from the barycentre is sqrt(3) sqrt(mom2_long), inside [1.5, 3.5]
+    # the light pixel is the start: its distance from the centroid is sqrt(3) sqrt(m2_major_mm2), inside [1.5, 3.5]
     row, cols = _run({(C, R): 100, (C + 1, R): 300})
     assert _has(row, Status.COLLINEAR, Status.TOO_FEW_PIXELS)
     assert not row["status"] & int(Status.NO_EMISSION)
@@ -70,16 +70,16 @@ def test_two_equal_pixels_have_no_skewness():
     expected = np.arctan2(y1 - y0, x1 - x0)
     assert np.isclose(cols["axis_rad"][0], expected, atol=1e-12)
     assert cols["emission_rad"][0] == cols["axis_rad"][0]  # best available: the axis, orientation unknown
-    assert (cols["conv_x_mm"][0], cols["conv_y_mm"][0]) == (cols["bary_x_mm"][0], cols["bary_y_mm"][0])
+    assert (cols["conv_x_mm"][0], cols["conv_y_mm"][0]) == (cols["centroid_x_mm"][0], cols["centroid_y_mm"][0])
 
 
 def test_three_equal_pixels_in_a_triangle_are_round():
     # (C, R), (C + 1, R) and their common neighbour in row R + 1 (row R is not shifted: columns C - 1, C)
     row, cols = _run({(C, R): 150, (C + 1, R): 150, (C, R + 1): 150})
     assert _has(row, Status.ROUND, Status.TOO_FEW_PIXELS)
-    assert np.isnan(row["axis_rad"]) and np.isnan(row["emission_rad"]) and np.isnan(row["mom3_long"])
-    assert np.isclose(row["mom2_long"], row["mom2_trans"])
-    assert row["conv_x_mm"] == row["bary_x_mm"]
+    assert np.isnan(row["axis_rad"]) and np.isnan(row["emission_rad"]) and np.isnan(row["m3_major_mm3"])
+    assert np.isclose(row["m2_major_mm2"], row["m2_minor_mm2"])
+    assert row["conv_x_mm"] == row["centroid_x_mm"]
 
 
 def test_hexagon_of_equal_charges_is_round():
@@ -96,7 +96,7 @@ def test_three_collinear_pixels_and_a_longer_line_with_rising_charge():
     row, cols = _run(pixels)
     assert row["status"] == Status.COLLINEAR  # eight pixels: enough, everything defined
     assert abs(cols["axis_rad"][0]) < 1e-12 and abs(cols["emission_rad"][0]) < 1e-12
-    assert cols["mom3_long"][0] < 0  # the low-charge start lies at -x (PHYSICS.md §2: start side = sign(M3))
+    assert cols["m3_major_mm3"][0] < 0  # the low-charge start lies at -x (PHYSICS.md §2: start side = sign(M3))
 
 
 def test_line_with_all_equal_charges():
@@ -109,7 +109,7 @@ def test_negative_neighbours_are_ignored():
     line = {(C + k, R): 30 + 40 * k * k for k in range(8)}
     _, clean = _run(line)
     _, noisy = _run({**line, (C, R + 1): -500, (C + 3, R - 1): -32768})
-    for name in ("bary_x_mm", "emission_rad", "mom2_long", "pulse_height"):
+    for name in ("centroid_x_mm", "emission_rad", "m2_major_mm2", "pulse_height"):
         assert clean[name][0] == noisy[name][0]
 
 
@@ -149,18 +149,18 @@ def test_largest_charge_wins_and_clusters_are_counted():
     assert row["n_clusters"] == 2 and row["n_pixels"] == 2 and row["pulse_height"] == 6000
 
 
-def test_empty_conversion_selection_falls_back_to_the_barycentre():
+def test_empty_conversion_selection_falls_back_to_the_centroid():
     pixels = {(C + k, R): 30 + 40 * k * k for k in range(8)}
-    row, cols = _run(pixels, ReconConfig(r_min=3.0, r_max=3.01))
+    row, cols = _run(pixels, ReconConfig(start_search_inner_rms=3.0, start_search_outer_rms=3.01))
     assert _has(row, Status.NO_CONVERSION_PIXELS)
     assert row["n_conv_pixels"] == 0
-    assert (row["conv_x_mm"], row["conv_y_mm"]) == (row["bary_x_mm"], row["bary_y_mm"])
+    assert (row["conv_x_mm"], row["conv_y_mm"]) == (row["centroid_x_mm"], row["centroid_y_mm"])
     assert abs(cols["emission_rad"][0]) < 1e-12  # first-pass axis, pointing away from the start side (-x)
 
 
 def test_second_pass_fallback_when_weights_vanish():
     pixels = {(C + k, R + (k // 3)): 30 + 40 * k * k for k in range(9)}
-    row, cols = _run(pixels, ReconConfig(weight_scale_mm=1e-7))
+    row, cols = _run(pixels, ReconConfig(second_pass_length_mm=1e-7))
     assert _has(row, Status.SECOND_PASS_FALLBACK)
     axis = cols["axis_rad"][0]
     assert np.isclose(abs(np.cos(cols["emission_rad"][0] - axis)), 1.0)  # the first-pass axis, oriented

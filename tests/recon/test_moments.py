@@ -36,9 +36,9 @@ def test_moments_match_numpy_cov_and_eigh(batch):
     x, y = ev.x_mm, ev.y_mm
     assert cols["n_pixels"][0] == len(q)
     assert cols["pulse_height"][0] == q.sum()
-    # barycentre: numpy.average with weights
-    assert np.isclose(cols["bary_x_mm"][0], np.average(x, weights=q), rtol=0, atol=1e-12)
-    assert np.isclose(cols["bary_y_mm"][0], np.average(y, weights=q), rtol=0, atol=1e-12)
+    # centroid: numpy.average with weights
+    assert np.isclose(cols["centroid_x_mm"][0], np.average(x, weights=q), rtol=0, atol=1e-12)
+    assert np.isclose(cols["centroid_y_mm"][0], np.average(y, weights=q), rtol=0, atol=1e-12)
     if len(q) == 1:
         assert cols["status"][0] & Status.SINGLE_PIXEL
         return
@@ -47,8 +47,8 @@ def test_moments_match_numpy_cov_and_eigh(batch):
     cov = np.cov(np.vstack([x, y]), aweights=q, bias=True)
     eigval, eigvec = np.linalg.eigh(cov)
     scale = eigval.sum()
-    assert np.isclose(cols["mom2_long"][0], eigval[1], rtol=1e-10, atol=1e-14 * scale)
-    assert np.isclose(cols["mom2_trans"][0], max(eigval[0], 0.0), rtol=1e-10, atol=1e-12 * scale)
+    assert np.isclose(cols["m2_major_mm2"][0], eigval[1], rtol=1e-10, atol=1e-14 * scale)
+    assert np.isclose(cols["m2_minor_mm2"][0], max(eigval[0], 0.0), rtol=1e-10, atol=1e-12 * scale)
     if eigval[1] - eigval[0] <= 1e-6 * scale:  # round: no axis to compare
         return
     assert not cols["status"][0] & Status.ROUND
@@ -62,7 +62,7 @@ def test_moments_match_numpy_cov_and_eigh(batch):
         vx, vy = -vx, -vy
     u = (x - np.average(x, weights=q)) * vx + (y - np.average(y, weights=q)) * vy
     m3 = np.average(u**3, weights=q)
-    assert np.isclose(cols["mom3_long"][0], m3, rtol=1e-6, atol=1e-9 * scale**1.5)
+    assert np.isclose(cols["m3_major_mm3"][0], m3, rtol=1e-6, atol=1e-9 * scale**1.5)
 
 
 def test_public_table_holds_the_same_moments_in_float32():
@@ -70,6 +70,6 @@ def test_public_table_holds_the_same_moments_in_float32():
     batch = EventBatch.from_images([image], [(100, 100)])
     table = reconstruct(batch, CONFIG)
     cols = kernel_columns(batch, CONFIG)
-    for name in ("bary_x_mm", "mom2_long", "mom2_trans", "mom3_long", "axis_rad", "emission_rad"):
+    for name in ("centroid_x_mm", "m2_major_mm2", "m2_minor_mm2", "m3_major_mm3", "axis_rad", "emission_rad"):
         assert table[name].dtype == np.float32
         assert np.isclose(table[name][0], cols[name][0], rtol=1e-6, atol=1e-7)

@@ -12,8 +12,8 @@ from trackfit.recon._synthetic import toy_tracks
 from trackfit.recon.status import Status
 
 ISSUE_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters", "pulse_height", "energy_kev",
-                 "bary_x_mm", "bary_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad", "mom2_long",
-                 "mom2_trans", "mom3_long", "peak_adc"]
+                 "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad", "m2_major_mm2",
+                 "m2_minor_mm2", "m3_major_mm3", "peak_adc"]
 ISSUE_DTYPES = {"trigger_id": "int64", "time_s": "float64", "status": "uint16", "n_pixels": "int32",
                 "n_clusters": "int16", "peak_adc": "int16"}
 
@@ -82,7 +82,8 @@ def test_file_gives_the_same_rows_as_memory(raw_file, tmp_path, batch_size, thre
 
 def test_provenance_reproduces_the_run(raw_file, tmp_path):
     path, _ = raw_file
-    config = ReconConfig(threshold_adc=25, r_min=1.2, weight_scale_mm=0.04, second_pass_centre="weighted_barycentre",
+    config = ReconConfig(threshold_adc=25, start_search_inner_rms=1.2, second_pass_length_mm=0.04,
+                         second_pass_centre="weighted_centroid",
                          bad_pixels=[(150, 176)])
     first = read_table(reconstruct_file(path, tmp_path / "a.h5", config, progress=False))
     stored = ReconConfig.from_toml(first.provenance["config_toml"])

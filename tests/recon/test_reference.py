@@ -19,12 +19,12 @@ from trackfit.recon.status import Status
 
 def assert_same(kernel, reference, atol=1e-9):
     # an axis along y may come out as pi/2 on one side and -pi/2 + 1e-16 on the other (round-off at the wrap of
-    # (-pi/2, pi/2]): the same axis, with the opposite orientation, so mom3_long changes sign with it
+    # (-pi/2, pi/2]): the same axis, with the opposite orientation, so m3_major_mm3 changes sign with it
     flipped = np.abs(kernel["axis_rad"] - reference["axis_rad"]) > np.pi / 2
     for name in FLOAT_COLUMNS:
         a, b = kernel[name], reference[name]
         assert np.array_equal(np.isnan(a), np.isnan(b)), name
-        if name == "mom3_long":
+        if name == "m3_major_mm3":
             b = np.where(flipped, -b, b)
         finite = ~np.isnan(a)
         diff = np.abs(a[finite] - b[finite])
@@ -54,13 +54,14 @@ def _mixed_batch(make_batch):
 
 CONFIGS = [
     ReconConfig(),
-    ReconConfig(second_pass_centre="weighted_barycentre", r_min=1.0, r_max=4.0, weight_scale_mm=0.08),
+    ReconConfig(second_pass_centre="weighted_centroid", start_search_inner_rms=1.0, start_search_outer_rms=4.0,
+                second_pass_length_mm=0.08),
     ReconConfig(threshold_adc=35.5, min_pixels=10, saturation_adc=300, bad_pixels=[(150, 176), (151, 176)]),
-    ReconConfig(threshold_adc=0, min_pixels=1, weight_scale_mm=0.02),
+    ReconConfig(threshold_adc=0, min_pixels=1, second_pass_length_mm=0.02),
 ]
 
 
-@pytest.mark.parametrize("config", CONFIGS, ids=["default", "barycentre-centre", "mask", "no-threshold"])
+@pytest.mark.parametrize("config", CONFIGS, ids=["default", "centroid-centre", "mask", "no-threshold"])
 def test_kernel_matches_reference_on_thousands_of_events(config, make_batch):
     for batch in _mixed_batch(make_batch):
         assert_same(kernel_columns(batch, config), reconstruct_batch_reference(batch, config))

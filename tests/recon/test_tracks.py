@@ -34,11 +34,11 @@ def test_axis_and_emission_angle_follow_the_true_direction(tracks):
     assert np.all((table["emission_rad"] > -np.pi) & (table["emission_rad"] <= np.pi))
 
 
-def test_conversion_point_is_closer_to_the_true_start_than_the_barycentre(tracks):
+def test_conversion_point_is_closer_to_the_true_start_than_the_centroid(tracks):
     batch, table = tracks
     sx, sy = batch.truth["start_x_mm"], batch.truth["start_y_mm"]
     to_conv = np.hypot(table["conv_x_mm"] - sx, table["conv_y_mm"] - sy)
-    to_bary = np.hypot(table["bary_x_mm"] - sx, table["bary_y_mm"] - sy)
+    to_bary = np.hypot(table["centroid_x_mm"] - sx, table["centroid_y_mm"] - sy)
     assert np.mean(to_conv < to_bary) > 0.95
     assert np.median(to_conv) < 0.5 * np.median(to_bary)
 
@@ -77,10 +77,10 @@ def test_rotating_a_track_by_60_degrees_rotates_both_angles():
     assert np.all(before["status"] == 0) and np.all(after["status"] == 0)
     assert np.allclose(angle_diff(after["axis_rad"], before["axis_rad"] + np.pi / 3, period=np.pi), 0, atol=1e-9)
     assert np.allclose(angle_diff(after["emission_rad"], before["emission_rad"] + np.pi / 3), 0, atol=1e-9)
-    for name in ("mom2_long", "mom2_trans", "pulse_height"):
+    for name in ("m2_major_mm2", "m2_minor_mm2", "pulse_height"):
         assert np.allclose(after[name], before[name], rtol=1e-9, atol=1e-15)
-    # the sign of mom3_long follows the orientation of axis_rad, which may wrap at +-pi/2
-    assert np.allclose(np.abs(after["mom3_long"]), np.abs(before["mom3_long"]), rtol=1e-9, atol=1e-15)
+    # the sign of m3_major_mm3 follows the orientation of axis_rad, which may wrap at +-pi/2
+    assert np.allclose(np.abs(after["m3_major_mm3"]), np.abs(before["m3_major_mm3"]), rtol=1e-9, atol=1e-15)
     assert np.array_equal(after["n_clusters"], before["n_clusters"])
 
 
@@ -89,12 +89,12 @@ def test_mirroring_a_track_flips_the_emission_angle_by_pi():
     before, after = _transformed_pair(invert)
     assert np.allclose(angle_diff(after["axis_rad"], before["axis_rad"], period=np.pi), 0, atol=1e-9)
     assert np.allclose(angle_diff(after["emission_rad"], before["emission_rad"] + np.pi), 0, atol=1e-9)
-    assert np.allclose(after["mom3_long"], -before["mom3_long"], rtol=1e-9, atol=1e-15)
+    assert np.allclose(after["m3_major_mm3"], -before["m3_major_mm3"], rtol=1e-9, atol=1e-15)
 
 
 def test_second_pass_centre_options_agree_on_clean_tracks(tracks):
     batch, table = tracks
-    other = reconstruct(batch, ReconConfig(second_pass_centre="weighted_barycentre"))
+    other = reconstruct(batch, ReconConfig(second_pass_centre="weighted_centroid"))
     err = np.abs(angle_diff(other["emission_rad"], batch.truth["angle_rad"]))
     assert np.quantile(err, 0.99) < 0.3
     # the options differ (they are not the same computation) but only slightly

@@ -44,7 +44,8 @@ def test_direction_and_conversion_point_follow_the_truth(simulated):
     assert 0.37 < np.mean(np.cos(2 * dphi)) < 0.6
     assert np.mean(np.cos(dphi) > 0) > 0.8  # the head-tail orientation is mostly right
     to_conv = np.hypot(table["conv_x_mm"] - truth["conversion_x_mm"], table["conv_y_mm"] - truth["conversion_y_mm"])
-    to_bary = np.hypot(table["bary_x_mm"] - truth["conversion_x_mm"], table["bary_y_mm"] - truth["conversion_y_mm"])
+    to_bary = np.hypot(table["centroid_x_mm"] - truth["conversion_x_mm"],
+                       table["centroid_y_mm"] - truth["conversion_y_mm"])
     assert np.mean(to_conv[ok] < to_bary[ok]) > 0.8
     assert np.median(to_conv[ok]) < 0.3 * np.median(to_bary[ok])
 

@@ -259,6 +259,12 @@ def _write_gain_map(group, gain: GainMap):
     group.attrs["position"] = gain.position
 
 
+def _position(value) -> str:
+    """A map's position name; files of trackfit 0.1 call the centroid 'barycentre'."""
+    value = _str(value)
+    return "centroid" if value == "barycentre" else value
+
+
 def _str(value):
     return value.decode() if isinstance(value, bytes) else str(value)
 
@@ -267,7 +273,7 @@ def _read_gain_map(group) -> GainMap:
     return GainMap(**{name: group[name][()] for name in ("x_edges_mm", "y_edges_mm", "relative_gain",
                                                           "relative_gain_err", "counts")},
                    reference_peak=float(group.attrs["reference_peak"]), min_counts=int(group.attrs["min_counts"]),
-                   line=_str(group.attrs["line"]), position=_str(group.attrs["position"]))
+                   line=_str(group.attrs["line"]), position=_position(group.attrs["position"]))
 
 
 def _write_gain_drift(group, drift: GainDrift):
@@ -315,7 +321,7 @@ def _write_spurious(group, spurious: SpuriousMap):
 
 def _read_spurious(group) -> SpuriousMap:
     return SpuriousMap(**{name: group[name][()] for name in _SPURIOUS_DATASETS},
-                       position=_str(group.attrs["position"]))
+                       position=_position(group.attrs["position"]))
 
 
 _WRITERS = {"energy_scale": _write_energy_scale, "gain_map": _write_gain_map, "gain_drift": _write_gain_drift,

@@ -2,7 +2,7 @@
 
 Order of the steps, each using the parts made before it:
 
-1. flat field (Fe-55): gain versus time (optional, one run only), gain map (barycentre positions), K-alpha peak of
+1. flat field (Fe-55): gain versus time (optional, one run only), gain map (centroid positions), K-alpha peak of
    the gain-corrected spectrum;
 2. energy scale from the K-alpha peak and any further lines (one Gaussian each, on gain-corrected pulse heights);
 3. spurious-modulation map from unpolarized runs (one energy node per run);
@@ -136,7 +136,7 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
 
     if flat_field:
         chosen = [select_rows(run.table, flat_selection.mask(run.table)) for run in flat_field]
-        data = _concat(chosen, ("pulse_height", "bary_x_mm", "bary_y_mm", "time_s"))
+        data = _concat(chosen, ("pulse_height", "centroid_x_mm", "centroid_y_mm", "time_s"))
         labels = [run.label for run in flat_field]
         flat_inputs = [table_identity(run.table, run.label) for run in flat_field]
         ph = data["pulse_height"].astype(float)
@@ -148,16 +148,16 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
             cal = cal.with_part("gain_drift", drift, make_provenance(runs=labels, cuts=flat_selection.to_dict(),
                                                                      inputs=flat_inputs))
         if extent_mm is None:
-            x_edges, y_edges = _edges(data["bary_x_mm"], gain_cell_mm), _edges(data["bary_y_mm"], gain_cell_mm)
+            x_edges, y_edges = _edges(data["centroid_x_mm"], gain_cell_mm), _edges(data["centroid_y_mm"], gain_cell_mm)
         else:
             x_edges = cell_edges(extent_mm[0], extent_mm[1], gain_cell_mm)
             y_edges = cell_edges(extent_mm[2], extent_mm[3], gain_cell_mm)
-        gain = fit_gain_map(data["bary_x_mm"], data["bary_y_mm"], ph, x_edges_mm=x_edges, y_edges_mm=y_edges,
+        gain = fit_gain_map(data["centroid_x_mm"], data["centroid_y_mm"], ph, x_edges_mm=x_edges, y_edges_mm=y_edges,
                             min_counts=gain_min_counts)
         cal = cal.with_part("gain_map", gain, make_provenance(runs=labels, cuts=flat_selection.to_dict(),
                                                                cell_mm=gain_cell_mm, min_counts=gain_min_counts,
                                                                inputs=flat_inputs))
-        corrected = gain.correct(ph, data["bary_x_mm"], data["bary_y_mm"])
+        corrected = gain.correct(ph, data["centroid_x_mm"], data["centroid_y_mm"])
         report.flat_field_fit = fit_fe55(corrected, bins=100, range=(0.5 * gain.reference_peak,
                                                                      1.5 * gain.reference_peak))
         peaks, energies, errors = [report.flat_field_fit.peak], [FE55_KALPHA_KEV], [report.flat_field_fit.peak_err]
@@ -166,7 +166,7 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
             if run.energy_kev is None:
                 raise ValueError(f"line run '{run.label}' needs its energy_kev")
             t = select_rows(run.table, flat_selection.mask(run.table))
-            ph_line = gain.correct(np.asarray(t["pulse_height"], float), t["bary_x_mm"], t["bary_y_mm"])
+            ph_line = gain.correct(np.asarray(t["pulse_height"], float), t["centroid_x_mm"], t["centroid_y_mm"])
             if cal.gain_drift is not None and gain_drift:
                 report.notes.append(f"gain drift of the flat field not applied to line run '{run.label}'")
             guess = report.flat_field_fit.peak * run.energy_kev / FE55_KALPHA_KEV

@@ -90,7 +90,7 @@ class GainMap:
     line : str
         ``"fe55"`` or ``"gaussian"``.
     position : str
-        ``"barycentre"`` (default: where the charge reaches the multiplier) or ``"conversion"``.
+        ``"centroid"`` (default: where the charge reaches the multiplier) or ``"conversion"``.
     """
 
     x_edges_mm: np.ndarray
@@ -101,7 +101,7 @@ class GainMap:
     reference_peak: float
     min_counts: int
     line: str = "fe55"
-    position: str = "barycentre"
+    position: str = "centroid"
     global_fit: LineFit | None = field(default=None, repr=False, compare=False)
 
     def __post_init__(self):
@@ -113,12 +113,12 @@ class GainMap:
             object.__setattr__(self, name, arr)
         object.__setattr__(self, "x_edges_mm", np.asarray(self.x_edges_mm, dtype=float))
         object.__setattr__(self, "y_edges_mm", np.asarray(self.y_edges_mm, dtype=float))
-        if self.position not in ("conversion", "barycentre"):
-            raise ValueError(f"'position' must be 'conversion' or 'barycentre' (got {self.position!r})")
+        if self.position not in ("conversion", "centroid"):
+            raise ValueError(f"'position' must be 'conversion' or 'centroid' (got {self.position!r})")
 
     @property
     def columns(self) -> tuple[str, str]:
-        return ("conv_x_mm", "conv_y_mm") if self.position == "conversion" else ("bary_x_mm", "bary_y_mm")
+        return ("conv_x_mm", "conv_y_mm") if self.position == "conversion" else ("centroid_x_mm", "centroid_y_mm")
 
     @property
     def n_measured(self) -> int:
@@ -153,7 +153,7 @@ class GainMap:
 
 
 def fit_gain_map(x_mm, y_mm, pulse_height, *, x_edges_mm, y_edges_mm, min_counts: int = 300,
-                 line: str = "fe55", bins: int = 60, fit_range=None, position: str = "barycentre") -> GainMap:
+                 line: str = "fe55", bins: int = 60, fit_range=None, position: str = "centroid") -> GainMap:
     """Fit the line peak in each spatial cell.
 
     Parameters

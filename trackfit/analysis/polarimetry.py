@@ -34,7 +34,7 @@ def event_weights(table: Mapping, weighting) -> np.ndarray | None:
             return np.asarray(table["user_weight"], dtype=float)
         if weighting != "ellipticity":
             raise ValueError(f"unknown weighting {weighting!r}; expected one of {WEIGHTINGS} or an array")
-        return ellipticity_weights(table["mom2_long"], table["mom2_trans"])
+        return ellipticity_weights(table["m2_major_mm2"], table["m2_minor_mm2"])
     w = np.asarray(weighting, dtype=float)
     n = len(table["emission_rad"])
     if w.shape != (n,):

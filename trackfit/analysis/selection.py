@@ -305,13 +305,13 @@ class PixelCountCut(RangeCut):
 
 @dataclass(frozen=True, kw_only=True)
 class ElongationCut(RangeCut):
-    """``low <= mom2_long / mom2_trans < high`` (round tracks carry little angular information)."""
+    """``low <= m2_major_mm2 / m2_minor_mm2 < high`` (round tracks carry little angular information)."""
 
-    column: str = "mom2_long"
+    column: str = "m2_major_mm2"
 
     def _values(self, table):
-        long_ = _column(table, "mom2_long").astype(float)
-        trans = _column(table, "mom2_trans").astype(float)
+        long_ = _column(table, "m2_major_mm2").astype(float)
+        trans = _column(table, "m2_minor_mm2").astype(float)
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(trans > 0, long_ / trans, np.where(long_ > 0, np.inf, np.nan))
 
@@ -331,10 +331,12 @@ class ElongationCut(RangeCut):
         return {"cut": "ElongationCut", "low": self.low, "high": self.high}
 
 
-_POSITIONS = {"conversion": ("conv_x_mm", "conv_y_mm"), "barycentre": ("bary_x_mm", "bary_y_mm")}
+_POSITIONS = {"conversion": ("conv_x_mm", "conv_y_mm"), "centroid": ("centroid_x_mm", "centroid_y_mm")}
 
 
 def _check_position(position):
+    if position == "barycentre":
+        raise SelectionError("'position' = 'barycentre' is now 'centroid'")
     if position not in _POSITIONS:
         raise SelectionError(f"'position' must be one of {sorted(_POSITIONS)} (got {position!r})")
 
@@ -349,7 +351,7 @@ class CircleRegion(Cut):
     """Events whose position lies within ``radius_mm`` of ``(x_mm, y_mm)``.
 
     ``position`` chooses the point of each track: ``"conversion"`` (conv_x_mm, conv_y_mm; default) or
-    ``"barycentre"`` (bary_x_mm, bary_y_mm).
+    ``"centroid"`` (centroid_x_mm, centroid_y_mm).
     """
 
     x_mm: float = 0.0

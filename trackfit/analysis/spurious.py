@@ -52,7 +52,7 @@ class SpuriousMap:
     counts : ndarray, shape (k, nx, ny)
         Events per node and cell.
     position : str
-        Which point of the track locates it: ``"conversion"`` or ``"barycentre"``.
+        Which point of the track locates it: ``"conversion"`` or ``"centroid"``.
     """
 
     energy_kev: np.ndarray
@@ -78,12 +78,12 @@ class SpuriousMap:
                 raise ValueError(f"'{name}' must have shape {shape} (energy nodes, x cells, y cells); "
                                  f"got {arr.shape}")
             object.__setattr__(self, name, arr)
-        if self.position not in ("conversion", "barycentre"):
-            raise ValueError(f"'position' must be 'conversion' or 'barycentre' (got {self.position!r})")
+        if self.position not in ("conversion", "centroid"):
+            raise ValueError(f"'position' must be 'conversion' or 'centroid' (got {self.position!r})")
 
     @property
     def columns(self) -> tuple[str, str]:
-        return ("conv_x_mm", "conv_y_mm") if self.position == "conversion" else ("bary_x_mm", "bary_y_mm")
+        return ("conv_x_mm", "conv_y_mm") if self.position == "conversion" else ("centroid_x_mm", "centroid_y_mm")
 
     def at(self, energy_kev, x_mm, y_mm) -> tuple[np.ndarray, np.ndarray]:
         """``(Q_sp, U_sp)`` for each event: linear in energy between nodes (constant beyond), nearest cell.
@@ -205,7 +205,7 @@ def measure_spurious_map(runs, *, x_edges_mm, y_edges_mm, position: str = "conve
         the science analysis weights). The node energy is the weighted mean energy of the run.
     x_edges_mm, y_edges_mm : array_like
         Cell edges (e.g. from :func:`cell_edges`).
-    position : {"conversion", "barycentre"}
+    position : {"conversion", "centroid"}
         Which point of each track locates it.
     min_counts : int
         Cells with fewer events are left empty (NaN, applied as 0).
@@ -218,9 +218,9 @@ def measure_spurious_map(runs, *, x_edges_mm, y_edges_mm, position: str = "conve
     for name, edges in (("x_edges_mm", x_edges), ("y_edges_mm", y_edges)):
         if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0):
             raise ValueError(f"'{name}' must be increasing with at least 2 entries (got {edges.tolist()})")
-    if position not in ("conversion", "barycentre"):
-        raise ValueError(f"'position' must be 'conversion' or 'barycentre' (got {position!r})")
-    xc, yc = ("conv_x_mm", "conv_y_mm") if position == "conversion" else ("bary_x_mm", "bary_y_mm")
+    if position not in ("conversion", "centroid"):
+        raise ValueError(f"'position' must be 'conversion' or 'centroid' (got {position!r})")
+    xc, yc = ("conv_x_mm", "conv_y_mm") if position == "conversion" else ("centroid_x_mm", "centroid_y_mm")
     shape = (x_edges.size - 1, y_edges.size - 1)
     runs = list(runs)
     if energy_edges_kev is not None and runs:

@@ -499,13 +499,13 @@ def mdp99(n_events=None, *, modulation_factor, rate_src_hz=None, rate_bkg_hz=0.0
     return MDP99_CONSTANT / (mu * rate_src_hz) * float(np.sqrt((rate_src_hz + rate_bkg_hz) / exposure_s))
 
 
-def ellipticity_weights(mom2_long, mom2_trans, *, exponent: float = 0.75) -> np.ndarray:
+def ellipticity_weights(m2_major_mm2, m2_minor_mm2, *, exponent: float = 0.75) -> np.ndarray:
     """Per-event weights ``((L - T)/(L + T))^exponent`` from the second moments (Di Marco et al. 2022).
 
     NaN moments give NaN weights (those events are dropped by the Stokes functions).
     """
-    long_ = np.asarray(mom2_long, dtype=float)
-    trans = np.asarray(mom2_trans, dtype=float)
+    long_ = np.asarray(m2_major_mm2, dtype=float)
+    trans = np.asarray(m2_minor_mm2, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         ellipticity = np.clip((long_ - trans) / (long_ + trans), 0.0, 1.0)
     return ellipticity**exponent

@@ -18,7 +18,7 @@ def add_cut_options(parser, *, prefix: str = "", what: str = "events") -> None:
     group.add_argument(f"--{prefix}circle", nargs=3, type=float, metavar=("X_MM", "Y_MM", "R_MM"),
                        help="keep conversion points within R_MM of (X_MM, Y_MM)")
     group.add_argument(f"--{prefix}min-elongation", type=float, metavar="RATIO",
-                       help="keep tracks with mom2_long / mom2_trans >= RATIO")
+                       help="keep tracks with m2_major_mm2 / m2_minor_mm2 >= RATIO")
 
 
 def selection_from_args(args, *, prefix: str = ""):

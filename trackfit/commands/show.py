@@ -9,7 +9,7 @@ def register(subparsers):
     parser = subparsers.add_parser(
         "show", help="draw one event of a raw event file",
         description="Draw one event as filled hexagonal pixels (mm axes, colour bar in ADC counts) with the "
-        "reconstructed barycentre, conversion point, principal axis and emission direction on top.")
+        "reconstructed centroid, conversion point, principal axis and emission direction on top.")
     parser.add_argument("file", help="raw event file")
     parser.add_argument("--event", "-e", type=int, required=True, metavar="N", help="event index (0-based)")
     parser.add_argument("-o", "--output", metavar="PNG",
@@ -60,7 +60,7 @@ def run(args) -> int:
 def _describe(row) -> str:
     import math
 
-    keys = ("status", "n_pixels", "n_clusters", "pulse_height", "energy_kev", "bary_x_mm", "bary_y_mm",
+    keys = ("status", "n_pixels", "n_clusters", "pulse_height", "energy_kev", "centroid_x_mm", "centroid_y_mm",
             "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad")
     parts = []
     for key in keys:

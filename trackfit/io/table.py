@@ -1,4 +1,4 @@
-"""Event tables: one row per event, one column array per quantity (format version 1, ``docs/table-format.md``).
+"""Event tables: one row per event, one column array per quantity (format version 2, ``docs/table-format.md``).
 
 What to use when
 ----------------
@@ -33,10 +33,21 @@ __all__ = [
     "FORMAT_NAME",
     "FORMAT_VERSION",
     "COLUMN_DOCS",
+    "V1_COLUMN_NAMES",
 ]
 
 FORMAT_NAME = "event-table"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+#: versions :func:`read_table` reads; older ones have their columns renamed on reading
+READABLE_VERSIONS = (1, 2)
+#: column names of format version 1 -> their version-2 names (only the names changed, not the values)
+V1_COLUMN_NAMES = {
+    "bary_x_mm": "centroid_x_mm",
+    "bary_y_mm": "centroid_y_mm",
+    "mom2_long": "m2_major_mm2",
+    "mom2_trans": "m2_minor_mm2",
+    "mom3_long": "m3_major_mm3",
+}
 DEFAULT_CHUNK_ROWS = 65_536
 #: provenance strings longer than this are stored as scalar string datasets instead of attributes
 #: (HDF5 attributes are limited to 64 KiB)
@@ -54,15 +65,15 @@ COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
     "n_clusters": ("int16", "", "clusters found in the ROI (6-neighbour connected components)"),
     "pulse_height": ("float32", "ADC", "summed signal of the main cluster"),
     "energy_kev": ("float32", "keV", "pulse_height / counts_per_kev"),
-    "bary_x_mm": ("float32", "mm", "charge barycentre of the main cluster, x"),
-    "bary_y_mm": ("float32", "mm", "charge barycentre of the main cluster, y"),
+    "centroid_x_mm": ("float32", "mm", "charge centroid of the main cluster, x"),
+    "centroid_y_mm": ("float32", "mm", "charge centroid of the main cluster, y"),
     "conv_x_mm": ("float32", "mm", "reconstructed conversion (impact) point, x"),
     "conv_y_mm": ("float32", "mm", "reconstructed conversion (impact) point, y"),
     "axis_rad": ("float32", "rad", "first-pass principal axis, (-pi/2, pi/2]"),
     "emission_rad": ("float32", "rad", "second-pass emission angle, oriented along the track, (-pi, pi]"),
-    "mom2_long": ("float32", "mm^2", "second moment along the first-pass axis"),
-    "mom2_trans": ("float32", "mm^2", "second moment across the first-pass axis"),
-    "mom3_long": ("float32", "mm^3", "third moment along the first-pass axis"),
+    "m2_major_mm2": ("float32", "mm^2", "second moment along the first-pass axis"),
+    "m2_minor_mm2": ("float32", "mm^2", "second moment across the first-pass axis"),
+    "m3_major_mm3": ("float32", "mm^3", "third moment along the first-pass axis"),
     "peak_adc": ("int16", "ADC", "largest pixel signal of the main cluster (saturation checks); 0 without one"),
     "n_conv_pixels": ("int32", "", "pixels used for the conversion point"),
 }
@@ -312,7 +323,7 @@ def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
 
 
 class TableWriter(PartialFileWriter):
-    """Write an event-table file (format version 1) by appending column batches.
+    """Write an event-table file (format version 2) by appending column batches.
 
     Parameters
     ----------
@@ -471,20 +482,22 @@ def _read_provenance(group: h5py.Group) -> dict:
 
 
 def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -> EventTable:
-    """Read an event-table file (format version 1).
+    """Read an event-table file (format version 2; version-1 files are read with their columns renamed).
 
     Parameters
     ----------
     path : str or Path
     columns : sequence of str, optional
-        Columns to read (default: all, in file order).
+        Columns to read (default: all, in file order), by their current names (also for version-1 files).
     start, stop : int, optional
         Row range to read (default: all rows).
 
     Returns
     -------
     EventTable
-        With the file's ``/provenance`` as :attr:`EventTable.provenance`.
+        With the file's ``/provenance`` as :attr:`EventTable.provenance`. Columns of a version-1 file come back
+        under their version-2 names (:data:`V1_COLUMN_NAMES`) and the provenance gains
+        ``read_from_format_version = 1``.
 
     Raises
     ------
@@ -510,9 +523,11 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
         if attrs["trackfit_format"] != FORMAT_NAME:
             raise TableFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
                                          f"(got {attrs['trackfit_format']!r})", dataset="/")
-        if attrs["format_version"] != FORMAT_VERSION:
-            raise TableFormatError(path, f"unknown format_version {attrs['format_version']!r}; this trackfit "
-                                         f"reads version {FORMAT_VERSION}", dataset="/")
+        version = attrs["format_version"]
+        if version not in READABLE_VERSIONS:
+            raise TableFormatError(path, f"unknown format_version {version!r}; this trackfit reads versions "
+                                         f"{list(READABLE_VERSIONS)}", dataset="/")
+        rename = V1_COLUMN_NAMES if version == 1 else {}
         if "events" not in f or not isinstance(f["events"], h5py.Group):
             raise TableFormatError(path, "missing group", dataset="/events")
         events = f["events"]
@@ -533,16 +548,19 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
             elif ds.shape[0] != n_rows:
                 raise TableFormatError(path, f"has {ds.shape[0]} rows but /events/{first} has {n_rows}",
                                        dataset=where)
+        in_file = {rename.get(name, name): name for name in names_in_file}  # current name -> dataset name
         if columns is None:
-            wanted = names_in_file
+            wanted = list(in_file)
         else:
             wanted = [columns] if isinstance(columns, str) else list(columns)
-            unknown = [c for c in wanted if c not in names_in_file]
+            unknown = [c for c in wanted if c not in in_file]
             if unknown:
-                raise KeyError(f"'{path}' has no column(s) {unknown}; available: {names_in_file}")
+                raise KeyError(f"'{path}' has no column(s) {unknown}; available: {list(in_file)}")
         n_rows = n_rows or 0
         a, b, _ = slice(start, stop).indices(n_rows)
         b = max(a, b)
-        data = {name: events[name][a:b] for name in wanted}
+        data = {name: events[in_file[name]][a:b] for name in wanted}
         provenance = _read_provenance(f["provenance"]) if "provenance" in f else {}
+        if version != FORMAT_VERSION:
+            provenance["read_from_format_version"] = version
     return EventTable(data, provenance)

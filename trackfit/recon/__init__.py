@@ -4,7 +4,8 @@ What to use when
 ----------------
 * :func:`reconstruct` - an :class:`~trackfit.events.EventBatch` in memory to an :class:`~trackfit.io.table.EventTable`.
 * :func:`reconstruct_file` - a raw event file to an event-table file, streaming (also ``trackfit reconstruct``).
-* :class:`ReconConfig` - the settings (threshold, r_min, r_max, weight scale, gain, bad pixels), TOML in and out.
+* :class:`ReconConfig` - the settings (threshold, start-point search radii, second-pass length,
+  gain, bad pixels), TOML in and out.
 * :class:`Status` / :func:`explain_status` - the meaning of the ``status`` column.
 """
 

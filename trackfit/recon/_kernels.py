@@ -20,8 +20,8 @@ from .status import Status
 __all__ = ["reconstruct_range", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE"]
 
 #: column order of the float64 output array of the kernel
-FLOAT_COLUMNS = ("pulse_height", "energy_kev", "bary_x_mm", "bary_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad",
-                 "emission_rad", "mom2_long", "mom2_trans", "mom3_long")
+FLOAT_COLUMNS = ("pulse_height", "energy_kev", "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad",
+                 "emission_rad", "m2_major_mm2", "m2_minor_mm2", "m3_major_mm3")
 #: column order of the int64 output array of the kernel
 INT_COLUMNS = ("status", "n_pixels", "n_clusters", "peak_adc", "n_conv_pixels")
 
@@ -85,7 +85,7 @@ def _moments_about(px, py, w, n, cx, cy):
 
 @jit
 def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch_mm, row_pitch_mm, x0_mm, y0_mm,
-                      parity, threshold, min_pixels, r_min, r_max, weight_scale_mm, centre_on_conversion,
+                      parity, threshold, min_pixels, r_inner, r_outer, length_mm, centre_on_conversion,
                       counts_per_kev, saturation_adc, out_f, out_i):
     """Reconstruct events ``lo <= i < hi`` of a batch into rows of ``out_f`` / ``out_i``.
 
@@ -107,9 +107,12 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
     threshold : int
         Zero suppression: a pixel is hit when its signal > threshold.
     min_pixels : int
-    r_min, r_max, weight_scale_mm : float
+    r_inner, r_outer : float
+        Start-point search radii in units of sqrt(m2_major) (``start_search_inner_rms``, ``..._outer_rms``).
+    length_mm : float
+        Length scale of the second-pass weights (``second_pass_length_mm``).
     centre_on_conversion : bool
-        Second-pass moments about the conversion point (True) or the weighted barycentre (False).
+        Second-pass moments about the conversion point (True) or the weighted centroid (False).
     counts_per_kev : float
     saturation_adc : int
     out_f : float64 (N, len(FLOAT_COLUMNS)); out_i : int64 (N, len(INT_COLUMNS))
@@ -128,7 +131,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
     pq = np.empty(max_area, np.float64)
     use_mask = mask.size > 0
     nan = np.nan
-    inv_scale = 1.0 / weight_scale_mm  # weights exp(-D * inv_scale), as in the reference
+    inv_scale = 1.0 / length_mm  # weights exp(-D * inv_scale), as in the reference
 
     for i in range(lo, hi):
         s0 = start[i]
@@ -264,7 +267,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         if n < min_pixels:
             status |= _FEW
 
-        # ---- first pass: barycentre and moments
+        # ---- first pass: centroid and moments
         qsum = 0.0
         sx = 0.0
         sy = 0.0
@@ -300,9 +303,9 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         ca = math.cos(axis)
         sa = math.sin(axis)
         # third moment, and in the same loop the candidates for the conversion point on both sides of the
-        # barycentre (r_min..r_max * sqrt(mom2_long) away); the sign of mom3_long then picks the start side
-        rlo2 = r_min * r_min * m2l
-        rhi2 = r_max * r_max * m2l
+        # centroid (r_inner..r_outer * sqrt(m2_major_mm2) away); the sign of m3_major_mm3 then picks the start side
+        rlo2 = r_inner * r_inner * m2l
+        rhi2 = r_outer * r_outer * m2l
         m3 = 0.0
         pos_q = 0.0
         pos_x = 0.0
@@ -338,7 +341,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
             out_i[i, _I_STATUS] = status | _NO_SKEW
             continue
 
-        # ---- conversion point: charge barycentre of the candidates on the start side (sign of mom3_long)
+        # ---- conversion point: charge centroid of the candidates on the start side (sign of m3_major_mm3)
         side = 1.0 if m3 > 0.0 else -1.0
         if side > 0.0:
             cq, cx, cy, n_conv = pos_q, pos_x, pos_y, pos_n

@@ -111,15 +111,15 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
     x, y = grid.pixel_centre_mm(cc + c0, rr + r0)
     total = q.sum()
     bx, by = (q @ x) / total, (q @ y) / total
-    out.update(pulse_height=float(total), energy_kev=float(total / config.counts_per_kev), bary_x_mm=bx,
-               bary_y_mm=by, conv_x_mm=bx, conv_y_mm=by)
+    out.update(pulse_height=float(total), energy_kev=float(total / config.counts_per_kev), centroid_x_mm=bx,
+               centroid_y_mm=by, conv_x_mm=bx, conv_y_mm=by)
     if n == 1:
-        out.update(mom2_long=0.0, mom2_trans=0.0, status=int(status | Status.SINGLE_PIXEL))
+        out.update(m2_major_mm2=0.0, m2_minor_mm2=0.0, status=int(status | Status.SINGLE_PIXEL))
         return out
     dx, dy = x - bx, y - by
     mxx, myy, mxy = (q @ (dx * dx)) / total, (q @ (dy * dy)) / total, (q @ (dx * dy)) / total
     axis, m2l, m2t, half_diff = _axis(mxx, myy, mxy)
-    out.update(mom2_long=m2l, mom2_trans=m2t)
+    out.update(m2_major_mm2=m2l, m2_minor_mm2=m2t)
     if half_diff <= TOL * 0.5 * (mxx + myy):
         out["status"] = int(status | Status.ROUND)
         return out
@@ -127,13 +127,14 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
         status |= Status.COLLINEAR
     u = dx * math.cos(axis) + dy * math.sin(axis)
     m3 = (q @ u**3) / total
-    out.update(axis_rad=axis, mom3_long=m3)
+    out.update(axis_rad=axis, m3_major_mm3=m3)
     if abs(m3) <= TOL * m2l**1.5:
         out.update(emission_rad=axis, status=int(status | Status.NO_SKEWNESS))
         return out
     side = 1.0 if m3 > 0 else -1.0
     d2 = dx * dx + dy * dy
-    start_side = (u * side > 0) & (d2 >= config.r_min**2 * m2l) & (d2 <= config.r_max**2 * m2l)
+    r_inner, r_outer = config.start_search_inner_rms, config.start_search_outer_rms
+    start_side = (u * side > 0) & (d2 >= r_inner**2 * m2l) & (d2 <= r_outer**2 * m2l)
     out["n_conv_pixels"] = int(start_side.sum())
     if not start_side.any():
         out.update(emission_rad=_wrap(axis + (math.pi if side > 0 else 0.0)),
@@ -144,11 +145,11 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
     out.update(conv_x_mm=cx, conv_y_mm=cy)
 
     ex, ey = x - cx, y - cy
-    w = q * np.exp(-np.hypot(ex, ey) * (1.0 / config.weight_scale_mm))
+    w = q * np.exp(-np.hypot(ex, ey) * (1.0 / config.second_pass_length_mm))
     wsum = w.sum()
     emission, fallback = axis, True
     if wsum > 0 and np.isfinite(wsum):
-        if config.second_pass_centre == "weighted_barycentre":
+        if config.second_pass_centre == "weighted_centroid":
             ex, ey = ex - (w @ ex) / wsum, ey - (w @ ey) / wsum
         sxx, syy, sxy = (w @ (ex * ex)) / wsum, (w @ (ey * ey)) / wsum, (w @ (ex * ey)) / wsum
         phi, _, _, hd = _axis(sxx, syy, sxy)

@@ -5,7 +5,7 @@ Change a setting with :func:`dataclasses.replace` (handy when tuning cuts in a n
     from dataclasses import replace
     from trackfit import ReconConfig
 
-    config = replace(ReconConfig(), r_min=1.2, weight_scale_mm=0.04)
+    config = replace(ReconConfig(), start_search_inner_rms=1.2, second_pass_length_mm=0.04)
     config.write_toml("recon.toml")           # trackfit reconstruct run.h5 -o run_events.h5 --config recon.toml
 """
 
@@ -20,9 +20,18 @@ import numpy as np
 
 from .._toml import dumps
 
-__all__ = ["ReconConfig", "SECOND_PASS_CENTRES"]
+__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS"]
 
-SECOND_PASS_CENTRES = ("conversion_point", "weighted_barycentre")
+SECOND_PASS_CENTRES = ("conversion_point", "weighted_centroid")
+
+#: setting names of trackfit 0.1 -> their current names; files using an old name are refused with the new one
+RENAMED_SETTINGS = {
+    "r_min": "start_search_inner_rms",
+    "r_max": "start_search_outer_rms",
+    "weight_scale_mm": "second_pass_length_mm",
+}
+#: values renamed the same way (setting -> {old value: new value})
+RENAMED_VALUES = {"second_pass_centre": {"weighted_barycentre": "weighted_centroid"}}
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -39,14 +48,16 @@ class ReconConfig:
     min_pixels : int
         Main clusters with fewer pixels get the ``TOO_FEW_PIXELS`` status bit (values are still computed).
         Default 6 (common practice: below that the moments of a hexagonal cluster reflect the pixel shape).
-    r_min, r_max : float
-        Conversion-point selection: start-side pixels at distances between ``r_min`` and ``r_max`` times
-        sqrt(mom2_long) from the barycentre. Defaults 1.5 and 3.5 (from memory of the published method; tune them
-        with the simulator, maximising the quality factor mu * sqrt(efficiency)).
-    weight_scale_mm : float
-        Second-pass weights exp(-distance / weight_scale_mm) from the conversion point. Default 0.05 mm (from
+    start_search_inner_rms, start_search_outer_rms : float
+        Inner and outer radius of the start-point search, in units of the track's rms length: the conversion
+        point is found among start-side pixels at distances between ``start_search_inner_rms`` and
+        ``start_search_outer_rms`` times sqrt(m2_major_mm2) from the centroid. Defaults 1.5 and 3.5 (from
+        memory of the published method; tune them with the simulator, maximising the quality factor
+        mu * sqrt(efficiency)).
+    second_pass_length_mm : float
+        Second-pass weights exp(-distance / second_pass_length_mm) from the conversion point. Default 0.05 mm (from
         memory of the published method; about one pixel pitch).
-    second_pass_centre : {"conversion_point", "weighted_barycentre"}
+    second_pass_centre : {"conversion_point", "weighted_centroid"}
         Point about which the weighted second moments are taken. Default ``"conversion_point"``.
     counts_per_kev : float
         Gain: ``energy_kev = pulse_height / counts_per_kev``. Default 3333.3 ADC counts per keV: the simulator's
@@ -68,9 +79,9 @@ class ReconConfig:
 
     threshold_adc: float = 10.0
     min_pixels: int = 6
-    r_min: float = 1.5
-    r_max: float = 3.5
-    weight_scale_mm: float = 0.05
+    start_search_inner_rms: float = 1.5
+    start_search_outer_rms: float = 3.5
+    second_pass_length_mm: float = 0.05
     second_pass_centre: str = "conversion_point"
     counts_per_kev: float = 3333.3
     saturation_adc: int = 32767
@@ -95,12 +106,13 @@ class ReconConfig:
             raise ValueError(f"'threshold_adc' must be >= 0 (got {self.threshold_adc})")
         if number("min_pixels", self.min_pixels, integer=True) < 1:
             raise ValueError(f"'min_pixels' must be >= 1 (got {self.min_pixels})")
-        if number("r_min", self.r_min) < 0:
-            raise ValueError(f"'r_min' must be >= 0 (got {self.r_min})")
-        if number("r_max", self.r_max) <= self.r_min:
-            raise ValueError(f"'r_max' must be > r_min = {self.r_min} (got {self.r_max})")
-        if number("weight_scale_mm", self.weight_scale_mm) <= 0:
-            raise ValueError(f"'weight_scale_mm' must be > 0 (got {self.weight_scale_mm})")
+        if number("start_search_inner_rms", self.start_search_inner_rms) < 0:
+            raise ValueError(f"'start_search_inner_rms' must be >= 0 (got {self.start_search_inner_rms})")
+        if number("start_search_outer_rms", self.start_search_outer_rms) <= self.start_search_inner_rms:
+            raise ValueError(f"'start_search_outer_rms' must be > start_search_inner_rms = "
+                             f"{self.start_search_inner_rms} (got {self.start_search_outer_rms})")
+        if number("second_pass_length_mm", self.second_pass_length_mm) <= 0:
+            raise ValueError(f"'second_pass_length_mm' must be > 0 (got {self.second_pass_length_mm})")
         if self.second_pass_centre not in SECOND_PASS_CENTRES:
             raise ValueError(f"'second_pass_centre' must be one of {SECOND_PASS_CENTRES} "
                              f"(got {self.second_pass_centre!r})")
@@ -169,6 +181,13 @@ class ReconConfig:
                 raise ValueError(f"{source}: unknown key(s) {others} beside the [recon] table; "
                                  "expected only [recon] and [selection]")
             values = values["recon"]
+        renamed = [key for key in values if key in RENAMED_SETTINGS]
+        if renamed:
+            hints = ", ".join(f"'{key}' is now '{RENAMED_SETTINGS[key]}'" for key in renamed)
+            raise ValueError(f"{source}: renamed setting(s): {hints}; rename the key(s) in the file")
+        for key, mapping in RENAMED_VALUES.items():
+            if isinstance(values.get(key), str) and values[key] in mapping:
+                raise ValueError(f"{source}: {key} = '{values[key]}' is now '{mapping[values[key]]}'")
         unknown = sorted(set(values) - set(cls.field_names()))
         if unknown:
             raise ValueError(f"{source}: unknown key(s) {unknown}; valid keys are {cls.field_names()}")

@@ -41,15 +41,15 @@ TABLE_COLUMNS: dict[str, np.dtype] = {
     "n_clusters": np.dtype(np.int16),
     "pulse_height": np.dtype(np.float32),
     "energy_kev": np.dtype(np.float32),
-    "bary_x_mm": np.dtype(np.float32),
-    "bary_y_mm": np.dtype(np.float32),
+    "centroid_x_mm": np.dtype(np.float32),
+    "centroid_y_mm": np.dtype(np.float32),
     "conv_x_mm": np.dtype(np.float32),
     "conv_y_mm": np.dtype(np.float32),
     "axis_rad": np.dtype(np.float32),
     "emission_rad": np.dtype(np.float32),
-    "mom2_long": np.dtype(np.float32),
-    "mom2_trans": np.dtype(np.float32),
-    "mom3_long": np.dtype(np.float32),
+    "m2_major_mm2": np.dtype(np.float32),
+    "m2_minor_mm2": np.dtype(np.float32),
+    "m3_major_mm3": np.dtype(np.float32),
     "peak_adc": np.dtype(np.int16),
     "n_conv_pixels": np.dtype(np.int32),
 }
@@ -80,8 +80,9 @@ class _Prepared:
         _, y_first = grid.pixel_centre_mm(0, 0)
         self.args = (
             self.mask, grid.n_columns, grid.pitch_mm, grid.row_pitch_mm, -float(x_first), -float(y_first), parity,
-            int(np.floor(config.threshold_adc)), config.min_pixels, config.r_min, config.r_max,
-            config.weight_scale_mm, config.second_pass_centre == "conversion_point", config.counts_per_kev,
+            int(np.floor(config.threshold_adc)), config.min_pixels, config.start_search_inner_rms,
+            config.start_search_outer_rms,
+            config.second_pass_length_mm, config.second_pass_centre == "conversion_point", config.counts_per_kev,
             config.saturation_adc,
         )
 

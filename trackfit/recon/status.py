@@ -54,18 +54,18 @@ STATUS_DOCS: dict[Status, str] = {
                       "pulse_height 0, every position, angle and moment NaN",
     Status.TOO_FEW_PIXELS: "main cluster has fewer than min_pixels pixels: everything that is defined is "
                            "computed, but angles are unreliable",
-    Status.SINGLE_PIXEL: "main cluster is one pixel: barycentre = conversion point = that pixel, moments 0, "
+    Status.SINGLE_PIXEL: "main cluster is one pixel: centroid = conversion point = that pixel, moments 0, "
                          "axis_rad and emission_rad NaN",
-    Status.ROUND: "first-pass second moments isotropic (mom2_long == mom2_trans within 1e-9): no axis, so "
-                  "axis_rad, emission_rad and mom3_long NaN; conversion point = barycentre",
-    Status.COLLINEAR: "all pixels on one line (mom2_trans == 0 within 1e-9 of mom2_long): axis exact, "
+    Status.ROUND: "first-pass second moments isotropic (m2_major_mm2 == m2_minor_mm2 within 1e-9): no axis, so "
+                  "axis_rad, emission_rad and m3_major_mm3 NaN; conversion point = centroid",
+    Status.COLLINEAR: "all pixels on one line (m2_minor_mm2 == 0 within 1e-9 of m2_major_mm2): axis exact, "
                       "values valid (every 2-pixel track)",
-    Status.NO_SKEWNESS: "third moment zero (|mom3_long| <= 1e-9 mom2_long^1.5): track start unknown, so the "
-                        "conversion point is the barycentre and emission_rad is the first-pass axis, "
+    Status.NO_SKEWNESS: "third moment zero (|m3_major_mm3| <= 1e-9 m2_major_mm2^1.5): track start unknown, so the "
+                        "conversion point is the centroid and emission_rad is the first-pass axis, "
                         "orientation arbitrary",
-    Status.NO_CONVERSION_PIXELS: "no pixel on the start side between r_min and r_max * sqrt(mom2_long) from the "
-                                 "barycentre: conversion point = barycentre; emission_rad = first-pass axis "
-                                 "oriented away from the start side",
+    Status.NO_CONVERSION_PIXELS: "no pixel on the start side between start_search_inner_rms and "
+                                 "start_search_outer_rms * sqrt(m2_major_mm2) from the centroid: conversion point = "
+                                 "centroid; emission_rad = first-pass axis oriented away from the start side",
     Status.SECOND_PASS_FALLBACK: "second-pass weighted moments degenerate (isotropic, or all weights underflow): "
                                  "emission_rad = first-pass axis oriented from the conversion point along the track",
     Status.ROI_BORDER: "main cluster touches the ROI border: the track may be truncated",
