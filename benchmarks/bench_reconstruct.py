@@ -1,4 +1,4 @@
-"""Reconstruction speed and memory, as ratios against baselines measured in the same run (issue 3, section 6).
+"""Reconstruction speed and memory, as ratios against baselines measured in the same run.
 
 Run:  python benchmarks/bench_reconstruct.py [--events 200000] [--no-memory] [--workdir DIR]
 

@@ -1,6 +1,6 @@
 """Geometry of the hexagonal pixel grid.
 
-Outside references: the distances below follow from plane geometry of a regular hexagonal lattice (PHYSICS.md §1,
+Outside references: the distances below follow from plane geometry of a regular hexagonal lattice (docs/methods.md §1,
 [derived]); the nearest-pixel search is compared with a brute-force nearest-centre search by scipy.spatial.cKDTree
 (a hexagonal pixel is the Voronoi cell of its centre, so both must agree).
 """
@@ -28,7 +28,7 @@ def test_defaults_describe_the_standard_chip():
 
 
 def test_row_pitch_and_pixel_area():
-    # PHYSICS.md §1 / §9 [derived]: row pitch = p*sqrt(3)/2 = 43.30 um for p = 50 um; hexagon area = sqrt(3)/2 * p^2
+    # docs/methods.md §1 / §9 [derived]: row pitch = p*sqrt(3)/2 = 43.30 um for p = 50 um; hexagon area = sqrt(3)/2 * p^2
     grid = HexGrid()
     assert grid.row_pitch_mm == pytest.approx(0.0433013, abs=1e-7)
     assert grid.pixel_area_mm2 == pytest.approx(np.sqrt(3) / 2 * 0.05**2, rel=1e-12)
@@ -91,7 +91,7 @@ def test_every_neighbour_is_one_pitch_away(grid):
     x, y = grid.pixel_centre_mm(columns, rows)
     nx, ny = grid.pixel_centre_mm(nc, nr)
     distance = np.hypot(nx - x[:, None], ny - y[:, None])
-    # PHYSICS.md §9 [derived]: nearest-neighbour distance on the hexagonal lattice = pitch
+    # docs/methods.md §9 [derived]: nearest-neighbour distance on the hexagonal lattice = pitch
     assert np.allclose(distance, grid.pitch_mm, rtol=0, atol=1e-9)
     assert np.all(grid.hex_distance(columns[:, None], rows[:, None], nc, nr) == 1)
     # six distinct neighbours, counter-clockwise from +x every 60 degrees
@@ -100,7 +100,7 @@ def test_every_neighbour_is_one_pitch_away(grid):
 
 
 def test_column_row_step_distance_is_one_pitch(grid):
-    # PHYSICS.md §9: the (c, r)-(c, r+1) distance is 50.00 um; rows are 43.30 um apart
+    # docs/methods.md §9: the (c, r)-(c, r+1) distance is 50.00 um; rows are 43.30 um apart
     for column, row in [(10, 10), (10, 11)]:
         x0, y0 = grid.pixel_centre_mm(column, row)
         x1, y1 = grid.pixel_centre_mm(column, row + 1)

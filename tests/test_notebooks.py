@@ -73,10 +73,10 @@ def test_calibration_report(tmp_path):
     assert calibration.parts() == summary["parts"] == ["energy_scale", "gain_map", "modulation_factor",
                                                        "spurious_modulation"]
     (e_low, mu_low, err_low), (e_high, mu_high, err_high) = summary["modulation_points"]
-    # PHYSICS.md §9 sanity band for He/DME 20/80, 1 atm, 1 cm (from memory, +-0.1): ~0.32 at 3.7, ~0.47 at 5.9 keV
+    # docs/methods.md §9 sanity band for He/DME 20/80, 1 atm, 1 cm (from memory, +-0.1): ~0.32 at 3.7, ~0.47 at 5.9 keV
     assert e_low == pytest.approx(3.7, abs=0.2) and abs(mu_low - 0.32) < 0.1
     assert e_high == pytest.approx(5.9, abs=0.2) and abs(mu_high - 0.47) < 0.1
-    assert mu_high > mu_low  # the modulation factor rises with energy (PHYSICS.md §2 pitfalls)
+    assert mu_high > mu_low  # the modulation factor rises with energy (docs/methods.md §2 pitfalls)
     # the calibration recovers the known beams of its own runs (100 % polarized, at 0 and 30 degrees)
     for check in summary["checks"].values():
         assert abs(check["degree"] - check["true_degree"]) < 3 * check["degree_err"]

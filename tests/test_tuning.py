@@ -43,7 +43,7 @@ def test_every_point_is_evaluated_and_reconstruction_reruns_only_per_setting(mon
 
 def test_metrics_match_direct_formulas(sweep):
     # Recompute one point by hand: Kislat et al. 2015 (modulation = 2 sqrt(<cos 2phi>^2 + <sin 2phi>^2) for a
-    # 100 %-polarized beam), quality factor mu sqrt(eps) (PHYSICS.md §2) and MDP99 = 4.29193 / (mu sqrt(N))
+    # 100 %-polarized beam), quality factor mu sqrt(eps) (docs/methods.md §2) and MDP99 = 4.29193 / (mu sqrt(N))
     # (Weisskopf et al. 2010).
     i = 5
     row = sweep.row(i)
@@ -66,14 +66,14 @@ def test_metrics_match_direct_formulas(sweep):
     assert row["modulation"] == pytest.approx(mu, rel=1e-9)
     assert row["quality"] == pytest.approx(mu * math.sqrt(eps), rel=1e-9)
     assert row["mdp99"] == pytest.approx(4.29193 / (mu * math.sqrt(round(eps * n_run))), rel=1e-5)
-    # modulation error for large N: sqrt(2/N) scaled (PHYSICS.md §3, [derived]) -- within 10 % at mu ~ 0.5
+    # modulation error for large N: sqrt(2/N) scaled (docs/methods.md §3, [derived]) -- within 10 % at mu ~ 0.5
     assert row["modulation_err"] == pytest.approx(math.sqrt(2 / keep.sum()), rel=0.1)
 
 
 def test_best_point_and_settings_file(sweep, tmp_path):
     quality = sweep.columns["quality"]
     assert sweep.best_index == int(np.nanargmax(quality))
-    # the sample polarized run is 100 % polarized: a modulation factor in the PHYSICS.md §9 sanity band for
+    # the sample polarized run is 100 % polarized: a modulation factor in the docs/methods.md §9 sanity band for
     # 5.9 keV (~0.47 +- 0.1, from memory) and an unpolarized residual consistent with zero (3 sigma)
     best = sweep.row()
     assert 0.37 < best["modulation"] < 0.65

@@ -10,7 +10,6 @@ import argparse
 import importlib
 import sys
 
-# Before committing in a shared working tree, read DEVELOPERS.md ("Working on a shared tree").
 #: subcommand modules, in the order ``trackfit --help`` lists them
 COMMAND_MODULES = ("info", "show", "simulate", "reconstruct", "calibrate", "polarization")
 

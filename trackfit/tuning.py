@@ -9,7 +9,7 @@ parameter changes; cut-only points reuse the event tables. For every point it re
 
 * ``efficiency``: fraction of the polarized subsample kept (fully reconstructed and passing the cuts), epsilon;
 * ``modulation``: the modulation factor mu of the kept events (measured modulation / known degree), with error;
-* ``quality``: the quality factor ``mu * sqrt(epsilon)`` with error; MDP scales as its inverse (PHYSICS.md §2);
+* ``quality``: the quality factor ``mu * sqrt(epsilon)`` with error; MDP scales as its inverse (docs/methods.md §2);
 * ``mdp99``: MDP99 for the events the whole run would keep (Weisskopf et al. 2010);
 * ``residual_modulation``: the modulation amplitude of the unpolarized run after the same cuts, with error.
 

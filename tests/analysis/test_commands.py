@@ -121,7 +121,7 @@ def test_calibrate_needs_input(tmp_path, capsys):
 
 
 def test_provenance_names_inputs(runs, tmp_path):
-    # every output file stores its inputs' identity (STYLE.md "Configs and results")
+    # every output file stores its inputs' identity (DEVELOPERS.md, "House style")
     cal_path = tmp_path / "cal.h5"
     assert main(["calibrate", "-o", str(cal_path), "--flat-field", str(runs["flat"]), "--gain-cell-mm", "4"]) == 0
     prov = Calibration.load(cal_path).provenance["gain_map"]

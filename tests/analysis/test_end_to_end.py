@@ -35,7 +35,7 @@ def test_known_polarization_recovered(tables, tmp_path, capsys):
                  "--polarized", f"{tables[RUNS[2]]},angle_deg=30", "--gain-cell-mm", "2.5",
                  "--spurious-cell-mm", "20", "--status-ok"]) == 0
     calibration = Calibration.load(cal)
-    # PHYSICS.md section 9 [memory - sanity band only, +-0.1]: mu ~ 0.32 at 3.7 keV and ~ 0.47 at 5.9 keV
+    # docs/methods.md section 9 [memory - sanity band only, +-0.1]: mu ~ 0.32 at 3.7 keV and ~ 0.47 at 5.9 keV
     assert calibration.modulation_factor(3.7) == pytest.approx(0.32, abs=0.1)
     assert calibration.modulation_factor(5.9) == pytest.approx(0.47, abs=0.1)
     # the Fe-55 K-alpha line sits at 5.895 keV after calibration (X-ray Data Booklet)
@@ -52,7 +52,7 @@ def test_known_polarization_recovered(tables, tmp_path, capsys):
 
 
 def test_flat_field_shows_no_polarization(tables):
-    # PHYSICS.md section 9 [derived]: unpolarized MC on a perfect hex grid gives |Q|/I, |U|/I consistent with 0
+    # docs/methods.md section 9 [derived]: unpolarized MC on a perfect hex grid gives |Q|/I, |U|/I consistent with 0
     from trackfit.analysis import StatusCut, measure_polarization
     from trackfit.io.table import read_table
 

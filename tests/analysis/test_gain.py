@@ -1,4 +1,4 @@
-"""Gain map and gain versus time (PHYSICS.md section 6)."""
+"""Gain map and gain versus time (docs/methods.md section 6)."""
 
 import numpy as np
 import pytest
@@ -13,7 +13,7 @@ def injected_gain(x, y):
 
 
 def test_gain_map_recovers_injected_pattern():
-    # toy study (issue 5): cells of 2 mm over 8 x 8 mm, 16 cells of ~3000 events; pulls of the fitted relative
+    # toy study: cells of 2 mm over 8 x 8 mm, 16 cells of ~3000 events; pulls of the fitted relative
     # gain about the injected pattern (normalised to the same reference) are standard normal
     rng = np.random.default_rng(50)
     n = 48_000
@@ -31,7 +31,7 @@ def test_gain_map_recovers_injected_pattern():
     pulls = (ratio / np.average(ratio, weights=gain.relative_gain_err**-2) - 1) / gain.relative_gain_err
     assert abs(pulls.mean()) < 4 / np.sqrt(16)
     assert 0.5 < pulls.std() < 1.6
-    # precision per cell (PHYSICS.md section 6 [derived]): 0.0764 / sqrt(N) for 18 % FWHM, +blend and background
+    # precision per cell (docs/methods.md section 6 [derived]): 0.0764 / sqrt(N) for 18 % FWHM, +blend and background
     assert np.median(gain.relative_gain_err) == pytest.approx(0.0764 / np.sqrt(3000), rel=0.3)
     # the correction removes most of the event-by-event gain variation (what remains is inside the cells)
     residual = gain.correct(ph, x, y) / ph * injected_gain(x, y)
@@ -56,7 +56,7 @@ def test_gain_map_minimum_counts_and_outside():
 
 @pytest.mark.parametrize("model", ["charging", "spline"])
 def test_gain_drift_recovers_charging_curve(model):
-    # charging-up of the multiplier (Kumar et al. 2020; model form of PHYSICS.md section 6):
+    # charging-up of the multiplier (Kumar et al. 2020; model form of docs/methods.md section 6):
     # G(t) = 1 - 0.08 (1 - exp(-t / 300 s)); the fitted relative gain follows the injected one to < 0.5 %
     rng = np.random.default_rng(52)
     n = 60_000

@@ -1,4 +1,4 @@
-"""Binned modulation-curve fit (PHYSICS.md section 3 and 9)."""
+"""Binned modulation-curve fit (docs/methods.md section 3 and 9)."""
 
 import numpy as np
 import pytest
@@ -9,14 +9,14 @@ from .toys import modulated_angles
 
 
 def test_fit_of_check_curve():
-    # PHYSICS.md section 9 [derived]: N proportional to 1 + 0.3 cos 2(phi - 30 deg), N = 1e6 ->
+    # docs/methods.md section 9 [derived]: N proportional to 1 + 0.3 cos 2(phi - 30 deg), N = 1e6 ->
     # m = 0.300 +- 0.0045, phi0 = 30.0 +- 0.4 deg
     rng = np.random.default_rng(20)
     phi = modulated_angles(rng, 10**6, 0.3, np.deg2rad(30.0))
     fit = modulation_curve(phi, n_bins=36)
     assert fit.modulation == pytest.approx(0.300, abs=0.0045)
     assert np.rad2deg(fit.phase_rad) == pytest.approx(30.0, abs=0.4)
-    # errors for large N (PHYSICS.md section 3 [derived]): sigma_m ~ sqrt(2/N), sigma_phi0 ~ sigma_m / (2 m)
+    # errors for large N (docs/methods.md section 3 [derived]): sigma_m ~ sqrt(2/N), sigma_phi0 ~ sigma_m / (2 m)
     assert fit.modulation_err == pytest.approx(np.sqrt(2 / 10**6), rel=0.05)
     assert fit.phase_err_rad == pytest.approx(fit.modulation_err / (2 * fit.modulation), rel=0.05)
     # A + B cos^2 form (Strohmayer & Kallman 2013): m = B / (2A + B)

@@ -1,4 +1,4 @@
-"""Line fits of pulse-height spectra and the energy scale (PHYSICS.md section 6)."""
+"""Line fits of pulse-height spectra and the energy scale (docs/methods.md section 6)."""
 
 import numpy as np
 import pytest
@@ -20,7 +20,7 @@ def fe55_pulse_heights(rng, n, *, gain=1000.0, fwhm_frac=0.18, kbeta_fraction=0.
 
 
 def test_fe55_line_energies():
-    # PHYSICS.md section 9 [X-ray Data Booklet]: Mn K-alpha1 / K-alpha2 / K-beta = 5898.75 / 5887.65 / 6490.45 eV
+    # docs/methods.md section 9 [X-ray Data Booklet]: Mn K-alpha1 / K-alpha2 / K-beta = 5898.75 / 5887.65 / 6490.45 eV
     # (tolerance 0.01 eV); K-alpha centroid 5.8950 keV and the K-beta/K-alpha ratio 1.1010 (section 6)
     assert 1000 * FE55_LINES_KEV["Ka1"] == pytest.approx(5898.75, abs=0.01)
     assert 1000 * FE55_LINES_KEV["Ka2"] == pytest.approx(5887.65, abs=0.01)
@@ -55,7 +55,7 @@ def test_fe55_fit_recovers_peak_and_resolution():
 
 
 def test_fe55_peak_precision():
-    # PHYSICS.md section 6 [derived]: the peak of a line with 18 % FWHM is known to 0.0764 / sqrt(N) relative;
+    # docs/methods.md section 6 [derived]: the peak of a line with 18 % FWHM is known to 0.0764 / sqrt(N) relative;
     # with the K-beta fraction fixed the blend costs only a few per cent; spread over 25 toys
     rng = np.random.default_rng(42)
     n = 3000

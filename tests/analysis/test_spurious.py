@@ -1,4 +1,4 @@
-"""Spurious modulation: calibration map, per-event subtraction, 0/90 degree separation (PHYSICS.md section 5)."""
+"""Spurious modulation: calibration map, per-event subtraction, 0/90 degree separation (docs/methods.md section 5)."""
 
 import numpy as np
 import pytest
@@ -36,8 +36,8 @@ def spurious_map():
 
 
 def test_map_recovers_injected_spurious(spurious_map):
-    # toy study (issue 5): the measured Q_sp, U_sp per cell match the cell average of the injected map within
-    # their errors; errors ~ 1/sqrt(2N) (PHYSICS.md section 5 [derived])
+    # toy study: the measured Q_sp, U_sp per cell match the cell average of the injected map within
+    # their errors; errors ~ 1/sqrt(2N) (docs/methods.md section 5 [derived])
     sm = spurious_map
     centres = 0.5 * (sm.x_edges_mm[1:] + sm.x_edges_mm[:-1])
     fine = np.linspace(-1.45, 1.45, 30)
@@ -66,7 +66,7 @@ def test_interpolation_is_linear_in_energy(spurious_map):
 
 
 def test_subtraction_removes_spurious_from_polarized_measurement(spurious_map):
-    # toy study (issue 5): a polarized source with spurious modulation; without subtraction the Stokes estimate is
+    # toy study: a polarized source with spurious modulation; without subtraction the Stokes estimate is
     # biased, with per-event subtraction it recovers the injected (p, psi) within errors
     rng = np.random.default_rng(61)
     mu, p, psi = 0.3, 0.10, np.deg2rad(70.0)
@@ -82,7 +82,7 @@ def test_subtraction_removes_spurious_from_polarized_measurement(spurious_map):
 
 
 def test_separation_with_runs_90_degrees_apart():
-    # PHYSICS.md section 5 [derived]: rotating the detector by 90 deg flips the genuine modulation in the detector
+    # docs/methods.md section 5 [derived]: rotating the detector by 90 deg flips the genuine modulation in the detector
     # frame but not the spurious one: S_sp = (S_0 + S_90)/2, S_gen = (S_0 - S_90)/2
     rng = np.random.default_rng(62)
     mu, p, psi, n = 0.3, 0.2, np.deg2rad(20.0), 400_000

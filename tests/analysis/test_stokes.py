@@ -1,4 +1,4 @@
-"""Unbinned Stokes analysis, MDP, Rice intervals and weights (PHYSICS.md sections 3-4 and 9)."""
+"""Unbinned Stokes analysis, MDP, Rice intervals and weights (docs/methods.md sections 3-4 and 9)."""
 
 import numpy as np
 import pytest
@@ -19,17 +19,17 @@ from .toys import modulated_angles
 
 # ------------------------------------------------------------------------------------------------------ MDP
 def test_mdp_constant():
-    # PHYSICS.md section 9 [derived; Weisskopf et al. 2010]: sqrt(-2 ln 0.01) sqrt(2) = 4.29193 (tol 1e-5)
+    # docs/methods.md section 9 [derived; Weisskopf et al. 2010]: sqrt(-2 ln 0.01) sqrt(2) = 4.29193 (tol 1e-5)
     assert MDP99_CONSTANT == pytest.approx(4.29193, abs=1e-5)
 
 
 def test_mdp_from_counts():
-    # PHYSICS.md section 9 [derived]: N = 1e6, mu = 0.30, no background -> 0.014306 (tol 1e-6)
+    # docs/methods.md section 9 [derived]: N = 1e6, mu = 0.30, no background -> 0.014306 (tol 1e-6)
     assert mdp99(10**6, modulation_factor=0.30) == pytest.approx(0.014306, abs=1e-6)
 
 
 def test_mdp_from_rates():
-    # PHYSICS.md section 9 [derived]: R_S = 1/s, R_B = 0.1/s, T = 1e5 s, mu = 0.30 -> 0.047428 with the
+    # docs/methods.md section 9 [derived]: R_S = 1/s, R_B = 0.1/s, T = 1e5 s, mu = 0.30 -> 0.047428 with the
     # rounded constant 4.29 of Weisskopf et al. 2010 (tol 1e-5); we use 4.29193, so rescale
     value = mdp99(modulation_factor=0.30, rate_src_hz=1.0, rate_bkg_hz=0.1, exposure_s=1e5)
     assert value * 4.29 / MDP99_CONSTANT == pytest.approx(0.047428, abs=1e-5)
@@ -74,7 +74,7 @@ def test_errors_follow_kislat_formula(p, mu):
 
 def test_sigma_q_toy_small_sets():
     # Kislat et al. 2015: sigma(Q) = sqrt(2 / ((N - 1) mu^2)) at p = 0; 4000 toy sets of 2000 events
-    # (relative error of the spread 1.1 %), tolerance 5 % as in PHYSICS.md section 9
+    # (relative error of the spread 1.1 %), tolerance 5 % as in docs/methods.md section 9
     rng = np.random.default_rng(4)
     n_sets, n, mu = 4000, 2000, 0.30
     qs = np.array([stokes_sums(rng.uniform(-np.pi, np.pi, n), modulation_factor=mu).q / n for _ in range(n_sets)])
@@ -83,7 +83,7 @@ def test_sigma_q_toy_small_sets():
 
 @pytest.mark.slow
 def test_sigma_q_toy_at_zero_polarization():
-    # PHYSICS.md section 9 [Kislat et al. 2015]: sigma(Q) at p = 0, N = 1e5, mu = 0.30 is 0.014907 (5 %, toy MC).
+    # docs/methods.md section 9 [Kislat et al. 2015]: sigma(Q) at p = 0, N = 1e5, mu = 0.30 is 0.014907 (5 %, toy MC).
     # 1000 toy sets of uniform angles: the spread of Q estimates has a relative error 1/sqrt(2000) = 2.2 %.
     rng = np.random.default_rng(4)
     n_sets, n = 1000, 100_000
@@ -95,7 +95,7 @@ def test_sigma_q_toy_at_zero_polarization():
 
 
 def test_fraction_above_mdp_for_unpolarized_sets():
-    # PHYSICS.md section 9 [derived]: the fraction of unpolarized data sets with p_hat > MDP99 is 0.0100
+    # docs/methods.md section 9 [derived]: the fraction of unpolarized data sets with p_hat > MDP99 is 0.0100
     # (+-0.002 for 1e5 sets); here 2e4 sets of 200 events (binomial sigma 0.0007)
     rng = np.random.default_rng(5)
     n_sets, n, mu = 20_000, 200, 0.5
@@ -110,7 +110,7 @@ def test_fraction_above_mdp_for_unpolarized_sets():
 # ------------------------------------------------------------------------------------------------------ estimates
 @pytest.mark.parametrize("p", [0.1, 0.2, 0.5, 0.8, 1.0])
 def test_stokes_unbiased_and_errors_cover(p):
-    # toy study (issue 5): unbiased for p = 0.1-1 and 1-sigma error bars cover the truth 68 +- 2 % of the time
+    # toy study: unbiased for p = 0.1-1 and 1-sigma error bars cover the truth 68 +- 2 % of the time
     # (Gaussian 1-sigma content 0.6827; 8000 sets -> binomial sigma 0.52 %, so +-2 % is a 3.8 sigma band)
     rng = np.random.default_rng(100 + int(100 * p))
     mu, psi, n, n_sets = 0.35, np.deg2rad(-40.0), 1000, 8000
@@ -130,7 +130,7 @@ def test_stokes_unbiased_and_errors_cover(p):
 
 
 def test_angle_and_degree_of_strong_polarization():
-    # modulation curve of PHYSICS.md section 3: p = m / mu and psi = phi0; errors sigma_psi ~ sigma_p / (2 p)
+    # modulation curve of docs/methods.md section 3: p = m / mu and psi = phi0; errors sigma_psi ~ sigma_p / (2 p)
     rng = np.random.default_rng(7)
     result = stokes_parameters(modulated_angles(rng, 200_000, 0.3 * 0.8, np.deg2rad(60.0)), modulation_factor=0.3)
     assert abs(result.degree - 0.8) < 4 * result.degree_err
@@ -241,7 +241,7 @@ def test_result_prints_table():
 
 # ------------------------------------------------------------------------------------------------------ Rice
 def test_rice_law_matches_scipy():
-    # PHYSICS.md section 4: p_hat of an unpolarized source is Rayleigh (Rice with p0 = 0): P(p_hat > x) =
+    # docs/methods.md section 4: p_hat of an unpolarized source is Rayleigh (Rice with p0 = 0): P(p_hat > x) =
     # exp(-x^2/(2 sigma^2)); the result's p_value_unpolarized is that tail (scipy.stats.rayleigh)
     rng = np.random.default_rng(14)
     r = stokes_parameters(modulated_angles(rng, 5000, 0.05, 0.0), modulation_factor=1.0)
@@ -252,7 +252,7 @@ def test_rice_law_matches_scipy():
 @pytest.mark.parametrize("p0_over_sigma", [0.0, 1.5, 4.0])
 @pytest.mark.parametrize("cl", [0.6827, 0.9])
 def test_rice_interval_coverage(p0_over_sigma, cl):
-    # Neyman construction on the Rice law (PHYSICS.md section 4): coverage equals the confidence level for every
+    # Neyman construction on the Rice law (docs/methods.md section 4): coverage equals the confidence level for every
     # true degree; p_hat drawn with scipy.stats.rice; 1200 draws -> binomial sigma <= 1.4 %
     rng = np.random.default_rng(int(1000 * p0_over_sigma + 100 * cl))
     sigma = 0.02
@@ -290,7 +290,7 @@ def test_rice_interval_coverage_on_event_toys():
 
 @pytest.mark.slow
 def test_fraction_above_mdp_full_size():
-    # PHYSICS.md section 9 [derived]: 0.0100 +- 0.002 for 1e5 unpolarized data sets
+    # docs/methods.md section 9 [derived]: 0.0100 +- 0.002 for 1e5 unpolarized data sets
     rng = np.random.default_rng(16)
     n_sets, n, mu = 100_000, 100, 0.3
     above = 0

@@ -1,7 +1,7 @@
 """Toy event generators for the analysis tests (test scaffolding, not physics).
 
 ``modulated_angles`` draws emission angles from pdf(phi) = (1 + m cos 2(phi - phi0)) / 2pi on (-pi, pi], the
-modulation curve of PHYSICS.md section 3 (m = mu p), by rejection sampling.
+modulation curve of docs/methods.md section 3 (m = mu p), by rejection sampling.
 """
 
 import numpy as np

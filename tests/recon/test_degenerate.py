@@ -96,7 +96,7 @@ def test_three_collinear_pixels_and_a_longer_line_with_rising_charge():
     row, cols = _run(pixels)
     assert row["status"] == Status.COLLINEAR  # eight pixels: enough, everything defined
     assert abs(cols["axis_rad"][0]) < 1e-12 and abs(cols["emission_rad"][0]) < 1e-12
-    assert cols["m3_major_mm3"][0] < 0  # the low-charge start lies at -x (PHYSICS.md §2: start side = sign(M3))
+    assert cols["m3_major_mm3"][0] < 0  # the low-charge start lies at -x (docs/methods.md §2: start side = sign(M3))
 
 
 def test_line_with_all_equal_charges():

@@ -1,6 +1,6 @@
 """First-pass moments against numpy: ``numpy.average`` / ``numpy.cov(..., aweights=charge)`` / ``numpy.linalg.eigh``
 on the pixel centres given by ``HexGrid.pixel_centre_mm`` (outside references: numpy's weighted covariance and
-symmetric eigensolver; formulas of PHYSICS.md §2, Bellazzini et al. 2003)."""
+symmetric eigensolver; formulas of docs/methods.md §2, Bellazzini et al. 2003)."""
 
 import numpy as np
 from hypothesis import given, settings

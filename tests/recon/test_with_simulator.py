@@ -40,7 +40,7 @@ def test_direction_and_conversion_point_follow_the_truth(simulated):
     ok = table["status"] == 0
     dphi = (table["emission_rad"] - truth["emission_azimuth_rad"])[ok]
     # response to the true emission direction: <cos 2 dphi> is the modulation factor for 100 % polarized light;
-    # about 0.47 at 5.9 keV for this gas (PHYSICS.md §9, from memory, +-0.1 sanity band)
+    # about 0.47 at 5.9 keV for this gas (docs/methods.md §9, from memory, +-0.1 sanity band)
     assert 0.37 < np.mean(np.cos(2 * dphi)) < 0.6
     assert np.mean(np.cos(dphi) > 0) > 0.8  # the head-tail orientation is mostly right
     to_conv = np.hypot(table["conv_x_mm"] - truth["conversion_x_mm"], table["conv_y_mm"] - truth["conversion_y_mm"])

@@ -1,6 +1,6 @@
 """Simulate -> reconstruct: modulation of reconstructed emission angles (the detector's modulation factor).
 
-The sanity band is PHYSICS.md §9: modulation factor of a He/DME 20/80, 1 atm, 1 cm cell with moment analysis
+The sanity band is docs/methods.md §9: modulation factor of a He/DME 20/80, 1 atm, 1 cm cell with moment analysis
 ≈0.25 (2.7 keV), ≈0.32 (3.7 keV), ≈0.47 (5.9 keV), ±0.1 — from memory, a sanity band only.
 """
 
@@ -12,7 +12,7 @@ import pytest
 from trackfit import ReconConfig, reconstruct
 from trackfit.simulate import load_preset, run
 
-SANITY_BAND = {2.7: 0.25, 3.7: 0.32, 5.9: 0.47}          # PHYSICS.md §9 [memory — sanity band only], ±0.1
+SANITY_BAND = {2.7: 0.25, 3.7: 0.32, 5.9: 0.47}          # docs/methods.md §9 [memory — sanity band only], ±0.1
 
 
 def _spot(config):
@@ -39,12 +39,12 @@ def test_polarized_5p9kev_modulation_factor_in_sanity_band():
     phi = _reconstructed_angles(config, 4000, seed=41)
     m, angle, _, _ = _modulation(phi)
     assert m == pytest.approx(SANITY_BAND[5.9], abs=0.1)
-    # the phase is the polarization angle (3 sigma of σ_φ0 ≈ σ_m/(2m), PHYSICS.md §3)
+    # the phase is the polarization angle (3 sigma of σ_φ0 ≈ σ_m/(2m), docs/methods.md §3)
     assert np.rad2deg(angle) == pytest.approx(30.0, abs=np.rad2deg(3 * np.sqrt(2 / len(phi)) / (2 * m)))
 
 
 def test_unpolarized_run_shows_no_modulation():
-    # PHYSICS.md §9 [derived]: |Q|/I, |U|/I consistent with 0 within 3·sqrt(1/(2N)) on a perfect hex grid
+    # docs/methods.md §9 [derived]: |Q|/I, |U|/I consistent with 0 within 3·sqrt(1/(2N)) on a perfect hex grid
     config = _spot(load_preset("hedme-1atm-1cm").with_monochromatic(energy_kev=5.9, polarization_degree=0.0))
     phi = _reconstructed_angles(config, 4000, seed=42)
     _, _, q, u = _modulation(phi)

@@ -1,4 +1,4 @@
-"""Absorption in the gas gap and the window against Beer-Lambert with xraydb coefficients (PHYSICS.md §7, §9)."""
+"""Absorption in the gas gap and the window against Beer-Lambert with xraydb coefficients (docs/methods.md §7, §9)."""
 
 import sys
 
@@ -13,7 +13,7 @@ DME_08 = GasConfig(molecules=("C2H6O",), fractions=(1.0,), pressure_atm=0.8, tem
 
 
 def test_ideal_gas_density_of_dme():
-    # PHYSICS.md §7 [derived]: n = 2.504e19 cm^-3 at 20 °C, 1 atm; rho(DME) = 1.915e-3 g/cm³
+    # docs/methods.md §7 [derived]: n = 2.504e19 cm^-3 at 20 °C, 1 atm; rho(DME) = 1.915e-3 g/cm³
     assert LOSCHMIDT_CM3 == pytest.approx(2.504e19, rel=1e-3)
     dme = GasMixture.from_config(GasConfig(molecules=("C2H6O",), fractions=(1.0,), pressure_atm=1.0))
     assert dme.density_g_cm3 == pytest.approx(1.915e-3, rel=1e-3)
@@ -21,7 +21,7 @@ def test_ideal_gas_density_of_dme():
 
 @pytest.mark.parametrize("energy_kev, expected", [(2.7, 0.2249), (5.9, 0.0238)])
 def test_dme_absorption_check_values(energy_kev, expected):
-    # PHYSICS.md §9 [xraydb]: absorption in 1 cm DME, 0.8 atm, 20 °C; tolerance 3 % relative
+    # docs/methods.md §9 [xraydb]: absorption in 1 cm DME, 0.8 atm, 20 °C; tolerance 3 % relative
     mixture = GasMixture.from_config(DME_08)
     assert mixture.absorption_probability(energy_kev) == pytest.approx(expected, rel=0.03)
 
@@ -47,7 +47,7 @@ def test_tabulated_cross_sections_match_xraydb_across_edges():
 
 
 def test_hedme_absorbs_like_dme_at_08_atm():
-    # PHYSICS.md §7 [derived]: He/DME 20/80 at 1 atm absorbs like pure DME at 0.8 atm (He adds little)
+    # docs/methods.md §7 [derived]: He/DME 20/80 at 1 atm absorbs like pure DME at 0.8 atm (He adds little)
     hedme = GasMixture.from_config(GasConfig(molecules=("He", "C2H6O"), fractions=(0.2, 0.8)))
     dme = GasMixture.from_config(DME_08)
     for energy in (2.7, 3.7, 5.9):
@@ -56,7 +56,7 @@ def test_hedme_absorbs_like_dme_at_08_atm():
 
 @pytest.mark.parametrize("energy_kev, expected, tolerance", [(2.7, 0.761, 0.02), (5.9, 0.976, 0.02)])
 def test_beryllium_window_check_values(energy_kev, expected, tolerance):
-    # PHYSICS.md §7, §9 [xraydb]: 50 µm Be transmits 0.761 at 2.7 keV, 0.976 at 5.9 keV
+    # docs/methods.md §7, §9 [xraydb]: 50 µm Be transmits 0.761 at 2.7 keV, 0.976 at 5.9 keV
     assert window_transmission("Be", 1.848, 50.0, energy_kev) == pytest.approx(expected, rel=tolerance)
 
 
@@ -68,7 +68,7 @@ def test_window_is_beer_lambert_with_xraydb_total_attenuation():
 
 
 def test_k_shell_fraction_just_above_edges():
-    # PHYSICS.md §7 [xraydb]: K-shell fraction just above the edge = 1 - 1/jump (C 0.947, O 0.935)
+    # docs/methods.md §7 [xraydb]: K-shell fraction just above the edge = 1 - 1/jump (C 0.947, O 0.935)
     dme = GasMixture.from_config(DME_08)
     for symbol, expected in (("C", 0.947), ("O", 0.935)):
         j = dme.elements.index(symbol)
@@ -78,7 +78,7 @@ def test_k_shell_fraction_just_above_edges():
 
 
 def test_dme_absorptions_are_on_carbon_or_oxygen():
-    # PHYSICS.md §7 [xraydb]: in DME >= 99.9 % of absorptions are on C or O
+    # docs/methods.md §7 [xraydb]: in DME >= 99.9 % of absorptions are on C or O
     dme = GasMixture.from_config(DME_08)
     partial = dme.element_absorption_per_cm(np.array([2.7, 5.9]))
     share = partial[[dme.elements.index("C"), dme.elements.index("O")]].sum(axis=0) / partial.sum(axis=0)
@@ -86,7 +86,7 @@ def test_dme_absorptions_are_on_carbon_or_oxygen():
 
 
 def test_k_edges_from_xraydb():
-    # PHYSICS.md §9 [xraydb]: C / O K edges 284.2 / 543.1 eV
+    # docs/methods.md §9 [xraydb]: C / O K edges 284.2 / 543.1 eV
     dme = GasMixture.from_config(DME_08)
     for symbol, edge_kev in (("C", 0.2842), ("O", 0.5431)):
         codes, edges, _ = dme.shell_probabilities(dme.elements.index(symbol), 1.0)

@@ -1,4 +1,4 @@
-"""Samplers of the simulator against published laws (PHYSICS.md §7, §9) and scipy."""
+"""Samplers of the simulator against published laws (docs/methods.md §7, §9) and scipy."""
 
 import dataclasses
 
@@ -26,13 +26,13 @@ DME_1ATM = GasConfig(molecules=("C2H6O",), fractions=(1.0,), pressure_atm=1.0)
 
 
 def test_sauter_moment_at_zero_speed():
-    # PHYSICS.md §9 [derived]: <cos²θ> = 0.2000 at β = 0 (sin²θ law), ±0.002 with 10⁶ draws
+    # docs/methods.md §9 [derived]: <cos²θ> = 0.2000 at β = 0 (sin²θ law), ±0.002 with 10⁶ draws
     mu = sample_sauter_cos_theta(np.zeros(1_000_000), np.random.default_rng(1))
     assert np.mean(mu**2) == pytest.approx(0.2000, abs=0.002)
 
 
 def test_sauter_forward_shift_at_beta_0147():
-    # PHYSICS.md §9 [derived]: <cosθ> = 0.118 at β = 0.147, ±0.002 with 10⁶ draws
+    # docs/methods.md §9 [derived]: <cosθ> = 0.118 at β = 0.147, ±0.002 with 10⁶ draws
     mu = sample_sauter_cos_theta(np.full(1_000_000, 0.147), np.random.default_rng(2))
     assert np.mean(mu) == pytest.approx(0.118, abs=0.002)
 
@@ -50,7 +50,7 @@ def test_sauter_polar_distribution_ks():
 
 @pytest.mark.parametrize("degree, angle_rad", [(1.0, 0.5), (0.4, -1.1), (0.0, 0.0)])
 def test_azimuth_law_ks(degree, angle_rad):
-    # PHYSICS.md §7: pdf(φ) ∝ 1 + P cos 2(φ - ψ) on [0, 2π); CDF = [φ + P/2 (sin 2(φ-ψ) + sin 2ψ)] / 2π [derived]
+    # docs/methods.md §7: pdf(φ) ∝ 1 + P cos 2(φ - ψ) on [0, 2π); CDF = [φ + P/2 (sin 2(φ-ψ) + sin 2ψ)] / 2π [derived]
     phi = sample_emission_azimuth(40_000, degree, angle_rad, np.random.default_rng(4))
 
     def cdf(x):
@@ -75,12 +75,12 @@ def test_isotropic_directions_moments():
 
 
 def test_electron_beta():
-    # relativistic kinematics: γ = 1 + T/mc², β = sqrt(1 - 1/γ²); β = 0.147 near 5.6 keV (PHYSICS.md §7)
+    # relativistic kinematics: γ = 1 + T/mc², β = sqrt(1 - 1/γ²); β = 0.147 near 5.6 keV (docs/methods.md §7)
     assert electron_beta(5.6) == pytest.approx(0.147, abs=0.001)
 
 
 def test_ionization_mean_and_variance_follow_w_and_fano():
-    # PHYSICS.md §9 [ICRU 31]: 5.9 keV in He with W = 41.3 eV gives 142.86 pairs on average; variance F·N̄
+    # docs/methods.md §9 [ICRU 31]: 5.9 keV in He with W = 41.3 eV gives 142.86 pairs on average; variance F·N̄
     rng = np.random.default_rng(7)
     n = ionization_electrons(np.full(400_000, 5.9), 41.3, 0.2, rng)
     mean = 5900 / 41.3
@@ -102,12 +102,12 @@ def test_polya_gain_matches_scipy_gamma():
 
 
 def test_thermal_diffusion_check_value():
-    # PHYSICS.md §9 [derived]: sqrt(2kTz/(eE)) = 50.3 µm for 1 cm at 2 kV/cm, 293.15 K
+    # docs/methods.md §9 [derived]: sqrt(2kTz/(eE)) = 50.3 µm for 1 cm at 2 kV/cm, 293.15 K
     assert thermal_diffusion_um(1.0, 2000.0, 293.15) == pytest.approx(50.3, abs=0.5)
 
 
 def test_diffusion_sigma_scales_with_square_root_of_drift():
-    # PHYSICS.md §7: σ_T = D_T·sqrt(z)
+    # docs/methods.md §7: σ_T = D_T·sqrt(z)
     assert diffusion_sigma_mm(10.0, 100.0) == pytest.approx(0.100)
     assert diffusion_sigma_mm(2.5, 100.0) == pytest.approx(0.050)
 
@@ -155,7 +155,7 @@ def test_kernel_diffusion_width(height_mm):
 
 
 def test_stopping_power_is_joy_luo_formula():
-    # Joy & Luo 1989 (PHYSICS.md §7): dE/ds = 78500 ρ Σ w_j Z_j/A_j ln(1.166 (E + 0.8 J_j)/J_j)/E keV/cm,
+    # Joy & Luo 1989 (docs/methods.md §7): dE/ds = 78500 ρ Σ w_j Z_j/A_j ln(1.166 (E + 0.8 J_j)/J_j)/E keV/cm,
     # with mass fractions of DME and J(H, C, O) = 19.2, 78, 95 eV [memory: ICRU 37]
     dme = GasMixture.from_config(DME_1ATM)
     rho = 1.915e-3
@@ -168,7 +168,7 @@ def test_stopping_power_is_joy_luo_formula():
 
 
 def test_elastic_mean_free_path_in_dme():
-    # PHYSICS.md §7 [memory: Joy 1995]: mean free path ≈ 10 µm at 5 keV in DME at 1 atm; wide tolerance (memory)
+    # docs/methods.md §7 [memory: Joy 1995]: mean free path ≈ 10 µm at 5 keV in DME at 1 atm; wide tolerance (memory)
     dme = GasMixture.from_config(DME_1ATM)
     mu_per_cm = sum(n * _kernels.elastic_cross_section_cm2(5.0, z) for z, n in zip(dme.atomic_number.astype(float),
                                                                                    dme.atom_density_cm3, strict=True))
@@ -178,7 +178,7 @@ def test_elastic_mean_free_path_in_dme():
 def test_track_range_vs_kanaya_okayama():
     """Mean path length of 5.6 keV electrons in DME at 1 atm vs the Kanaya-Okayama range.
 
-    Kanaya & Okayama 1972 [memory, PHYSICS.md §7]: R = 0.0276 A E^1.67 / (Z^0.889 ρ) µm with mass-weighted
+    Kanaya & Okayama 1972 [memory, docs/methods.md §7]: R = 0.0276 A E^1.67 / (Z^0.889 ρ) µm with mass-weighted
     A and Z of DME, ≈ 620 µm at 5.6 keV. Tolerance 35 %: the formula is from memory and is an empirical
     fit, while our path is the CSDA length of Bethe/Joy-Luo stopping (we find ≈ 0.73 × R_KO).
     """

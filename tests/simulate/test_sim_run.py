@@ -20,7 +20,7 @@ def _stokes(phi):
 
 
 def test_ideal_reconstruction_of_polarized_beam_gives_modulation_one(hedme_6kev_pencil):
-    # PHYSICS.md §7, §9 [derived]: the projected initial direction at normal incidence is modulated exactly by P;
+    # docs/methods.md §7, §9 [derived]: the projected initial direction at normal incidence is modulated exactly by P;
     # tolerance 3·sqrt(2/N)
     psi = np.deg2rad(30.0)
     config = hedme_6kev_pencil.with_monochromatic(polarization_degree=1.0, polarization_angle_deg=30.0)
@@ -33,7 +33,7 @@ def test_ideal_reconstruction_of_polarized_beam_gives_modulation_one(hedme_6kev_
 
 
 def test_unpolarized_true_directions_show_no_modulation(hedme_6kev_pencil):
-    # PHYSICS.md §9 [derived]: |Q|/I, |U|/I consistent with 0 within 3·sqrt(1/(2N))
+    # docs/methods.md §9 [derived]: |Q|/I, |U|/I consistent with 0 within 3·sqrt(1/(2N))
     result = run(hedme_6kev_pencil, 6000, rng=22)
     q, u, _, _ = _stokes(result.truth["emission_azimuth_rad"].astype(np.float64))
     n = len(result.batch)

@@ -6,7 +6,7 @@ global fit of the gain-corrected spectrum (:func:`grouped_peaks`, two passes). T
 peak over the global peak (about the median cell); cells below ``min_counts`` (or whose fit failed) are NaN and are
 applied as 1.
 
-Precision per cell is about ``(FWHM/E / 2.355) / sqrt(N)`` = 0.0764/sqrt(N) for 18 % FWHM (PHYSICS.md section 6).
+Precision per cell is about ``(FWHM/E / 2.355) / sqrt(N)`` = 0.0764/sqrt(N) for 18 % FWHM (docs/methods.md section 6).
 """
 
 from __future__ import annotations

@@ -4,7 +4,7 @@ Slices hold equal numbers of events. The smooth model is either
 
 * ``"charging"``: ``G(t) = G0 [1 - d (1 - exp(-(t - t0)/tau))]``, the approach to equilibrium of a multiplier
   whose dielectric charges up (Kumar et al. 2020 for the phenomenon; this closed form is the constant-rate
-  solution of the model in PHYSICS.md section 6), fitted with :func:`scipy.optimize.curve_fit`;
+  solution of the model in docs/methods.md section 6), fitted with :func:`scipy.optimize.curve_fit`;
 * ``"spline"``: a smoothing spline (:class:`scipy.interpolate.UnivariateSpline`, weights 1/error, smoothing =
   number of slices, i.e. chi-square about one per slice).
 

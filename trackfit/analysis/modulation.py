@@ -106,7 +106,7 @@ def modulation_curve(angles_rad, *, n_bins: int = 36, weights=None) -> Modulatio
         Emission angles (NaN entries are dropped).
     n_bins : int
         Number of bins over 2 pi; must be a multiple of 12 so that the 6-fold harmonics of the hexagonal grid
-        are orthogonal to cos 2phi (PHYSICS.md section 1).
+        are orthogonal to cos 2phi (docs/methods.md section 1).
     weights : array_like, shape (n,), optional
         Per-event weights; the fit is then a least-squares fit with variance = sum of squared weights.
 

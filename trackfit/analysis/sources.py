@@ -1,7 +1,7 @@
 """Polarization of laboratory calibration sources.
 
 A Bragg crystal reflecting near 45 degrees polarizes an unpolarized beam (the Thomson factor suppresses the
-component in the scattering plane). For a mosaic crystal (Silver et al. 1990; PHYSICS.md section 8)::
+component in the scattering plane). For a mosaic crystal (Silver et al. 1990; docs/methods.md section 8)::
 
     P(theta) = (1 - cos^2 2theta) / (1 + cos^2 2theta),     E45 = n hc / (2 d sin 45 deg)
 

@@ -32,7 +32,7 @@ __all__ = [
     "EnergyScale",
 ]
 
-#: Mn K lines emitted after Fe-55 decay, keV (X-ray Data Booklet values; see PHYSICS.md section 6)
+#: Mn K lines emitted after Fe-55 decay, keV (X-ray Data Booklet values; see docs/methods.md section 6)
 FE55_LINES_KEV = {"Ka1": 5.89875, "Ka2": 5.88765, "Kb": 6.49045}
 #: emission probability per decay, % (same source)
 FE55_INTENSITIES = {"Ka1": 16.2, "Ka2": 8.2, "Kb": 2.85}
@@ -255,7 +255,7 @@ def fit_fe55(values, *, bins: int = 100, range=None, start_resolution: float = 0
 
     References
     ----------
-    Line energies and intensities: X-ray Data Booklet (PHYSICS.md section 6).
+    Line energies and intensities: X-ray Data Booklet (docs/methods.md section 6).
     """
     counts, edges = _histogram(values, bins, range)
     peak0, width, level0 = _start_values(counts, edges)

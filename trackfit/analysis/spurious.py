@@ -8,7 +8,7 @@ run); :meth:`SpuriousMap.at` returns ``(Q_sp, U_sp)`` per event, interpolated li
 ``spurious_q``/``spurious_u``. :func:`separate_spurious` splits two measurements 90° apart into the
 detector-fixed (spurious) and beam-fixed (genuine) parts.
 
-Statistics: each cell with ``N`` events gives ``Q_sp`` to about ``1/sqrt(2N)`` (PHYSICS.md section 5).
+Statistics: each cell with ``N`` events gives ``Q_sp`` to about ``1/sqrt(2N)`` (docs/methods.md section 5).
 """
 
 from __future__ import annotations
@@ -300,7 +300,7 @@ def separate_spurious(q_0, u_0, q_90, u_90, *, q_0_err=0.0, u_0_err=0.0, q_90_er
     """Split measured ``<cos 2phi>``, ``<sin 2phi>`` of two runs with the detector rotated by 90°.
 
     A polarization fixed to the beam changes sign in the detector frame under a 90° rotation, the spurious
-    modulation does not: ``S_sp = (S_0 + S_90)/2``, ``S_gen = (S_0 - S_90)/2`` (PHYSICS.md section 5). Works
+    modulation does not: ``S_sp = (S_0 + S_90)/2``, ``S_gen = (S_0 - S_90)/2`` (docs/methods.md section 5). Works
     on scalars or on per-bin arrays (e.g. the ``q``/``u`` of two :class:`SpuriousMap`).
     """
     arrays = [np.asarray(v, dtype=float) for v in (q_0, u_0, q_90, u_90, q_0_err, u_0_err, q_90_err, u_90_err)]

@@ -159,7 +159,7 @@ def rice_interval(degree, sigma, confidence_level: float = ONE_SIGMA_LEVEL) -> t
     """Neyman confidence interval for the polarization degree from the Rice distribution of the estimate.
 
     The estimate ``p_hat = sqrt(Q^2 + U^2)`` of a true degree ``p0`` with per-component error ``sigma`` follows
-    a Rice law (PHYSICS.md section 4). Acceptance regions: for ``p0 <= p_c`` the one-sided ``[0, x_cl(p0)]``, for
+    a Rice law (docs/methods.md section 4). Acceptance regions: for ``p0 <= p_c`` the one-sided ``[0, x_cl(p0)]``, for
     ``p0 > p_c`` the central ``[x_(a/2)(p0), x_(1-a/2)(p0)]``, with ``p_c = sigma sqrt(-2 ln(1 - cl))`` (the
     detection threshold at that level: MDP99 for cl = 0.99). Coverage is exact for every ``p0``; intervals are
     never empty and become upper limits ``[0, hi]`` for small ``p_hat``.

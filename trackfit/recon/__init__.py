@@ -1,4 +1,4 @@
-"""Track reconstruction: cleaning and the two-stage moment analysis of raw events (``PHYSICS.md`` §2).
+"""Track reconstruction: cleaning and the two-stage moment analysis of raw events (``docs/methods.md`` §2).
 
 What to use when
 ----------------

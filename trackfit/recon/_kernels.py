@@ -1,6 +1,6 @@
 """Numba kernels of the reconstruction (private: use :func:`trackfit.reconstruct`).
 
-One kernel, :func:`reconstruct_range`, runs the whole per-event chain of ``PHYSICS.md`` §2 over a range of events
+One kernel, :func:`reconstruct_range`, runs the whole per-event chain of ``docs/methods.md`` §2 over a range of events
 of a batch and writes into preallocated output arrays; it never raises for one bad
 event, it sets a status bit (:mod:`trackfit.recon.status`) and writes NaN where a value is undefined. It releases
 the GIL (``nogil``), so threads can run it on disjoint event ranges while another thread reads the next batch.

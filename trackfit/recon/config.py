@@ -36,13 +36,13 @@ RENAMED_VALUES = {"second_pass_centre": {"weighted_barycentre": "weighted_centro
 
 @dataclass(frozen=True, kw_only=True)
 class ReconConfig:
-    """Parameters of cleaning and the two-stage moment analysis (``PHYSICS.md`` §2).
+    """Parameters of cleaning and the two-stage moment analysis (``docs/methods.md`` §2).
 
     Parameters
     ----------
     threshold_adc : float
         Zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts, >= 0). Default 10:
-        5 times a pixel noise of 50 electrons ENC (PHYSICS.md §7, from memory) at 25 electrons per ADC count (the
+        5 times a pixel noise of 50 electrons ENC (docs/methods.md §7, from memory) at 25 electrons per ADC count (the
         simulator's readout defaults), the top of the common-practice range of 3 to 5 sigma; set it from the
         pedestal RMS of your chip.
     min_pixels : int

@@ -153,7 +153,7 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTab
 
     References
     ----------
-    Bellazzini et al. 2003, Proc. SPIE 4843, 383 (two-stage moment analysis); ``PHYSICS.md`` §2.
+    Bellazzini et al. 2003, Proc. SPIE 4843, 383 (two-stage moment analysis); ``docs/methods.md`` §2.
 
     Examples
     --------
