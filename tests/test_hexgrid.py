@@ -28,7 +28,8 @@ def test_defaults_describe_the_standard_chip():
 
 
 def test_row_pitch_and_pixel_area():
-    # docs/methods.md §1 / §9 [derived]: row pitch = p*sqrt(3)/2 = 43.30 um for p = 50 um; hexagon area = sqrt(3)/2 * p^2
+    # docs/methods.md §1 / §9 [derived]: row pitch = p*sqrt(3)/2 = 43.30 um for p = 50 um;
+    # hexagon area = sqrt(3)/2 * p^2
     grid = HexGrid()
     assert grid.row_pitch_mm == pytest.approx(0.0433013, abs=1e-7)
     assert grid.pixel_area_mm2 == pytest.approx(np.sqrt(3) / 2 * 0.05**2, rel=1e-12)
