@@ -92,7 +92,7 @@ def test_every_neighbour_is_one_pitch_away(grid):
     x, y = grid.pixel_centre_mm(columns, rows)
     nx, ny = grid.pixel_centre_mm(nc, nr)
     distance = np.hypot(nx - x[:, None], ny - y[:, None])
-    # docs/methods.md §9 [derived]: nearest-neighbour distance on the hexagonal lattice = pitch
+    # docs/methods.md §1 [derived]: nearest-neighbour distance on the hexagonal lattice = pitch
     assert np.allclose(distance, grid.pitch_mm, rtol=0, atol=1e-9)
     assert np.all(grid.hex_distance(columns[:, None], rows[:, None], nc, nr) == 1)
     # six distinct neighbours, counter-clockwise from +x every 60 degrees
