@@ -3,7 +3,7 @@
 Run:  python benchmarks/bench_simulate.py [--events 40000] [--preset hedme-1atm-1cm] [--energy-kev 6.0]
 
 Prints events per second of ``trackfit.simulate.run`` (one process, one thread: numba kernels are not
-parallel, so this is the per-core figure the issue asks for, >= 10,000 events/s at 6 keV) and of its parts, and
+parallel, so this is the per-core figure; the target is >= 10,000 events/s at 6 keV) and of its parts, and
 the ratio against the plain-Python twin of the event kernel (``trackfit.simulate._reference``), run on a few hundred
 events of the same configuration. The machine is shared, so absolute numbers are noisy; the ratios are the
 comparable figures.

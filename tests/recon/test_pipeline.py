@@ -11,11 +11,11 @@ from trackfit.recon import TABLE_COLUMNS, content_fingerprint
 from trackfit.recon._synthetic import toy_tracks
 from trackfit.recon.status import Status
 
-ISSUE_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters", "pulse_height", "energy_kev",
-                 "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad", "m2_major_mm2",
-                 "m2_minor_mm2", "m3_major_mm3", "peak_adc"]
-ISSUE_DTYPES = {"trigger_id": "int64", "time_s": "float64", "status": "uint16", "n_pixels": "int32",
-                "n_clusters": "int16", "peak_adc": "int16"}
+DOCUMENTED_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters", "pulse_height", "energy_kev",
+                      "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad",
+                      "m2_major_mm2", "m2_minor_mm2", "m3_major_mm3", "peak_adc"]
+DOCUMENTED_DTYPES = {"trigger_id": "int64", "time_s": "float64", "status": "uint16", "n_pixels": "int32",
+                     "n_clusters": "int16", "peak_adc": "int16"}
 
 
 @pytest.fixture
@@ -30,11 +30,11 @@ def raw_file(tmp_path):
     return path, batch
 
 
-def test_columns_and_dtypes_of_the_issue():
+def test_columns_and_dtypes_of_the_table_format():
     table = reconstruct(toy_tracks(50, 1))
-    for name in ISSUE_COLUMNS:
+    for name in DOCUMENTED_COLUMNS:
         assert name in table
-        assert table[name].dtype == np.dtype(ISSUE_DTYPES.get(name, "float32")), name
+        assert table[name].dtype == np.dtype(DOCUMENTED_DTYPES.get(name, "float32")), name
     assert list(table)[:len(TABLE_COLUMNS)] == list(TABLE_COLUMNS)
     # the toy generator's truth follows, prefixed
     assert list(table)[len(TABLE_COLUMNS):] == ["truth_" + k for k in sorted(toy_tracks(1, 1).truth)]

@@ -8,7 +8,7 @@ import pytest
 from trackfit.simulate import ConfigError, GasConfig, SimConfig, list_presets, load_preset
 
 
-def test_presets_are_listed_and_named_as_the_issue_asks():
+def test_the_three_shipped_presets_are_listed():
     assert {"hedme-1atm-1cm", "dme-0.8atm-1cm", "ardme-3atm-3cm"} <= set(list_presets())
 
 
