@@ -42,9 +42,55 @@ def event_weights(table: Mapping, weighting) -> np.ndarray | None:
     return w
 
 
+def _from_stokes(name: str, doc: str) -> property:
+    """A read-only property that returns ``self.stokes.<name>``."""
+    return property(lambda self: getattr(self.stokes, name), doc=f"{doc} (``stokes.{name}``).")
+
+
 @dataclass(frozen=True, kw_only=True)
 class PolarizationMeasurement:
-    """Result of :func:`measure_polarization`: the Stokes result, its cut flow, bands and the modulation curve."""
+    """Result of :func:`measure_polarization`: the Stokes result, its cut flow, bands and the modulation curve.
+
+    Attributes
+    ----------
+    stokes : StokesResult
+        The answer: normalized Stokes parameters, degree, angle, errors, interval, MDP99 (see
+        :class:`~trackfit.analysis.StokesResult`). Its most used values are also attributes of the measurement
+        itself (read-only shortcuts, table below).
+    cut_flow : CutFlow
+        Events kept and removed by each cut of the selection.
+    modulation : ModulationFit or None
+        Binned fit of the modulation curve of the selected events (a cross-check and a figure).
+    bands : StokesBands or None
+        Results per energy band, when bands were asked for.
+    background_cut_flow : CutFlow or None
+        Cut flow of the off-source events, when a background was subtracted.
+    modulation_factor_rel_err : float
+        Relative error of the calibration's modulation factor for these events.
+    degree_calibration_err : float
+        ``degree * modulation_factor_rel_err``: scale error of the degree from the calibration, common to every run
+        analysed with it (not included in ``degree_err``).
+    settings : dict
+        Selection, weighting, calibration parts and fit settings used (what the JSON output records).
+
+    Shortcuts to ``stokes`` (``result.degree`` is ``result.stokes.degree``):
+
+    ==========================  ===========================================================================
+    ``q``, ``u``                normalized, modulation-corrected Stokes parameters
+    ``q_err``, ``u_err``        their errors (statistical, including the spurious-map calibration error)
+    ``degree``, ``degree_err``  polarization degree (0 to 1, biased high at low counts) and its error
+    ``degree_low``,             interval of the degree at ``stokes.confidence_level`` (Rice law, Neyman
+    ``degree_high``             construction; docs/methods.md §4)
+    ``angle_deg``,              polarization angle in degrees, in (-90, 90], from +x towards +y in the
+    ``angle_err_deg``           detector frame, and its error (NaN for a degree of exactly 0)
+    ``angle_rad``,              the same in radians
+    ``angle_err_rad``
+    ``mdp99``                   minimum detectable polarization at 99 % for these events (0 to 1)
+    ``p_value_unpolarized``     probability of a degree at least this large from unpolarized light
+    ``n_events``, ``n_eff``     events used and effective events ``(sum w)^2 / sum w^2``
+    ``modulation_factor``       effective modulation factor of the events
+    ==========================  ===========================================================================
+    """
 
     stokes: StokesResult
     cut_flow: CutFlow
@@ -53,6 +99,25 @@ class PolarizationMeasurement:
     background_cut_flow: CutFlow | None = None
     modulation_factor_rel_err: float = 0.0
     settings: dict = field(default_factory=dict)
+
+    # read-only shortcuts to the Stokes result (documented in the table of the class docstring)
+    q = _from_stokes("q", "Normalized, modulation-corrected Stokes parameter Q")
+    u = _from_stokes("u", "Normalized, modulation-corrected Stokes parameter U")
+    q_err = _from_stokes("q_err", "Error of Q")
+    u_err = _from_stokes("u_err", "Error of U")
+    degree = _from_stokes("degree", "Polarization degree, 0 to 1")
+    degree_err = _from_stokes("degree_err", "Error of the degree")
+    degree_low = _from_stokes("degree_low", "Lower end of the interval of the degree")
+    degree_high = _from_stokes("degree_high", "Upper end of the interval of the degree")
+    angle_deg = _from_stokes("angle_deg", "Polarization angle in degrees, in (-90, 90]")
+    angle_err_deg = _from_stokes("angle_err_deg", "Error of the angle in degrees")
+    angle_rad = _from_stokes("angle_rad", "Polarization angle in radians, in (-pi/2, pi/2]")
+    angle_err_rad = _from_stokes("angle_err_rad", "Error of the angle in radians")
+    mdp99 = _from_stokes("mdp99", "Minimum detectable polarization at 99 %, 0 to 1")
+    p_value_unpolarized = _from_stokes("p_value_unpolarized", "Probability of this degree from unpolarized light")
+    n_events = _from_stokes("n_events", "Events used")
+    n_eff = _from_stokes("n_eff", "Effective number of events")
+    modulation_factor = _from_stokes("modulation_factor", "Effective modulation factor of the events")
 
     @property
     def degree_calibration_err(self) -> float:

@@ -212,28 +212,44 @@ def rice_interval(degree, sigma, confidence_level: float = ONE_SIGMA_LEVEL) -> t
 class StokesResult:
     """Normalized, modulation-corrected Stokes parameters and the polarization they imply.
 
+    Degrees and MDP are fractions (0 to 1; multiply by 100 for %). Angles are measured in the detector frame from
+    +x towards +y, in (-pi/2, pi/2] (``angle_deg`` in (-90, 90]). Formulas: docs/methods.md §4.
+
     Attributes
     ----------
-    q, u, q_err, u_err, qu_cov : float
-        Normalized modulation-corrected Stokes parameters, errors and covariance.
+    q, u : float
+        Normalized, modulation-corrected Stokes parameters: their expectations are ``p cos 2psi`` and
+        ``p sin 2psi`` for a beam of degree ``p`` and angle ``psi``.
+    q_err, u_err, qu_cov : float
+        Their errors and covariance (counting statistics, plus the calibration error of a subtracted spurious
+        map when there is one).
     degree, degree_err : float
         ``p_hat = sqrt(q^2 + u^2)`` (biased high at low counts: see ``degree_low``/``degree_high``) and its error.
     angle_rad, angle_err_rad : float
         ``psi_hat = atan2(u, q) / 2`` in (-pi/2, pi/2] and its error (NaN when ``degree == 0``).
+    angle_deg, angle_err_deg : float
+        The same in degrees (read-only properties).
     degree_low, degree_high : float
-        Rice-based interval for the degree at ``confidence_level`` (:func:`rice_interval`).
+        Interval for the degree at ``confidence_level`` (:func:`rice_interval`; NaN when no level was asked for).
+    confidence_level : float
+        Probability content of that interval (default 0.6827, one Gaussian sigma).
     p_value_unpolarized : float
         Probability of a degree >= ``degree`` from unpolarized light, ``exp(-p^2/(2 sigma^2))``.
     mdp99 : float
         Minimum detectable polarization at 99 % for these events (with their weights and background).
     n_events, n_eff : int, float
-        Events used and effective events ``(sum w)^2 / sum w^2``.
+        Events used and effective events ``(sum w)^2 / sum w^2`` (equal without weights).
     sum_weights : float
         ``I = sum w`` (after background subtraction).
     modulation_factor : float
-        Effective modulation factor of the events (``sum w / sqrt(N_eff sum w^2/mu^2)``).
+        Effective modulation factor of the events (``sum w / sqrt(N_eff sum w^2/mu^2)``; the value for which
+        ``mdp99 = 4.29 / (modulation_factor sqrt(n_eff))``).
     n_background, background_scale : int, float
-        Off-source events subtracted and their scale.
+        Off-source events subtracted and their scale ``(area x time on) / (area x time off)``.
+    label : str
+        Free text shown in the printed summary (e.g. the energy band).
+
+    ``to_dict()`` gives all of them as plain values (JSON-ready, angles also in degrees).
     """
 
     q: float
