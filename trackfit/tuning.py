@@ -173,7 +173,7 @@ class SweepResult:
         try:
             import pandas as pd
         except ImportError:
-            raise ImportError("SweepResult.to_pandas needs pandas: pip install pandas") from None
+            raise ImportError('SweepResult.to_pandas needs pandas: pip install "trackfit[pandas]"') from None
         return pd.DataFrame(self.columns)
 
     # ------------------------------------------------------------------ display

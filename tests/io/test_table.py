@@ -81,7 +81,7 @@ def test_to_pandas_without_pandas(monkeypatch):
         return real_import(name, *args, **kwargs)
 
     monkeypatch.setattr(builtins, "__import__", no_pandas)
-    with pytest.raises(ImportError, match="pip install pandas"):
+    with pytest.raises(ImportError, match=r'pip install "trackfit\[pandas\]"'):
         EventTable(_columns()).to_pandas()
 
 

@@ -234,7 +234,7 @@ class EventTable(Mapping):
         try:
             import pandas as pd
         except ImportError:
-            raise ImportError("EventTable.to_pandas needs pandas: pip install pandas") from None
+            raise ImportError('EventTable.to_pandas needs pandas: pip install "trackfit[pandas]"') from None
         frame = pd.DataFrame({name: arr.copy() for name, arr in self._data.items()})
         frame.attrs["provenance"] = self.provenance
         return frame
