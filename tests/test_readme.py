@@ -11,6 +11,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import trackfit
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -47,16 +49,71 @@ def test_main_job_measures_the_known_beam(main_job):
     assert sorted(p.name for p in (out / "figures").glob("*.png"))
 
 
-def test_python_example_runs(main_job, tmp_path, monkeypatch):
+def test_python_example_runs(main_job, tmp_path, monkeypatch, capsys):
+    # the README's example runs as written from the repository root after the Quick start: a folder with the same
+    # relative paths (the sample run, the example settings file, the Quick start's calibration file)
     out, _ = main_job
-    shutil.copy(ROOT / "sample_data" / "pol100_5p9kev_120deg_short.h5", tmp_path / "run.h5")
-    shutil.copy(out / "calibration.h5", tmp_path / "cal.h5")
-    from trackfit.recon import ReconConfig
-
-    ReconConfig().write_toml(tmp_path / "recon.toml")
+    for name in ("sample_data/pol100_5p9kev_120deg_short.h5", "docs/examples/recon.toml"):
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy(ROOT / name, tmp_path / name)
+    (tmp_path / "trackfit_output").mkdir()
+    shutil.copy(out / "calibration.h5", tmp_path / "trackfit_output" / "calibration.h5")
     monkeypatch.chdir(tmp_path)
     code = re.search(r"```python\n(.*?)```", (ROOT / "README.md").read_text(), flags=re.S).group(1)
     namespace = {}
     exec(compile(code, "README example", "exec"), namespace)
     result = namespace["result"]
-    assert abs(result.stokes.degree - 1.0) < 3 * result.stokes.degree_err
+    printed = capsys.readouterr().out
+    # the simulated run is 100 % polarized at 120 degrees (= -60 degrees modulo 180): recovered within 3 sigma
+    assert abs(result.degree - 1.0) < 3 * result.degree_err
+    assert abs((result.angle_deg + 60.0 + 90.0) % 180.0 - 90.0) < 3 * result.angle_err_deg
+    assert f"degree {result.degree:.1%}" in printed and f"from {result.n_events} events" in printed
+    assert "Stokes parameters" in printed
+
+
+def test_result_shortcuts_are_the_stokes_values(main_job):
+    # every shortcut the README and the PolarizationMeasurement docstring list is the StokesResult's value
+    from trackfit.analysis import Calibration, PolarizationMeasurement, StatusCut, measure_polarization
+
+    out, _ = main_job
+    table = trackfit.read_table(out / "pol100_5p9kev_120deg_short_events.h5")
+    result = measure_polarization(table, calibration=Calibration.load(out / "calibration.h5"), selection=StatusCut())
+    table_rows = re.findall(r"^    (``\w+``[^\n]*)", PolarizationMeasurement.__doc__, flags=re.M)
+    names = {n for row in table_rows for n in re.findall(r"``(\w+)``", row)}
+    readme = (ROOT / "README.md").read_text()
+    listed = readme[readme.index("- **Results.**"):readme.index("- **Tables in pandas.**")]
+    for name in re.findall(r"`(\w+)`", listed):
+        if hasattr(result.stokes, name) and name != "to_dict":
+            names.add(name)
+    assert {"degree", "degree_err", "angle_deg", "angle_err_deg", "mdp99", "n_events", "q", "u"} <= names
+    for name in sorted(names):
+        assert getattr(result, name) == getattr(result.stokes, name), name
+        with pytest.raises(AttributeError):
+            setattr(result, name, 0.0)
+
+
+def test_example_settings_file_holds_every_default():
+    # docs/examples/recon.toml, which the README points to, is a complete settings file at the defaults
+    import tomllib
+
+    from trackfit import ReconConfig
+
+    path = ROOT / "docs" / "examples" / "recon.toml"
+    assert ReconConfig.read_toml(path) == ReconConfig()
+    assert set(tomllib.loads(path.read_text())["recon"]) == set(ReconConfig.field_names())
+
+
+def test_sample_data_readme_numbers_are_what_the_main_job_measures(main_job):
+    # sample_data/README.md quotes the main job's results; they must be what it measures (to the digits quoted)
+    from trackfit.analysis import Calibration
+
+    out, _ = main_job
+    text = " ".join((ROOT / "sample_data" / "README.md").read_text().split())
+    curve = Calibration.load(out / "calibration.h5").modulation_factor
+    low, high = sorted(zip(curve.points_energy_kev, curve.points_value, curve.points_error, strict=True))
+    assert f"5.9 keV run at 30° shows a modulation factor of {high[1]:.3f} ± {high[2]:.3f}" in text
+    assert f"3.7 keV run {low[1]:.3f} ± {low[2]:.3f}" in text
+    stokes = json.loads((out / "pol100_5p9kev_120deg_short.json").read_text())["stokes"]
+    quoted = (f"{100 * stokes['degree']:.1f} % ± {100 * stokes['degree_err']:.1f} % at "
+              f"{stokes['angle_deg']:.1f}° ± {stokes['angle_err_deg']:.1f}°").replace("-", "−")
+    assert quoted in text
