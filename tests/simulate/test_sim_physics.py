@@ -119,12 +119,14 @@ def test_kernel_diffusion_width(height_mm):
 
     from trackfit.simulate import load_preset
     from trackfit.simulate.engine import _Simulator
+    from trackfit.simulate.fluorescence import FluorescencePaths
     from trackfit.simulate.photons import PhotonBatch
 
     config = small_chip(load_preset("hedme-1atm-1cm"), noise_electrons=0.0, trigger_threshold_electrons=1.0,
                         roi_margin_pixels=0, electrons_per_adc=1.0)
     config = dataclasses.replace(config, multiplier=dataclasses.replace(config.multiplier, gain=20.0,
-                                                                        polya_theta=1e6, transfer_spread_um=0.0),
+                                                                        polya_theta=1e6, transfer_spread_um=0.0,
+                                                                        gain_map_rms=0.0),
                                  drift=dataclasses.replace(config.drift, diffusion_um_per_sqrt_cm=90.0),
                                  gas=dataclasses.replace(config.gas, w_value_ev=24.0))
     sim = _Simulator(config, np.random.default_rng(9))
@@ -134,8 +136,10 @@ def test_kernel_diffusion_width(height_mm):
     point_deposits = PhotonBatch(
         energy_kev=zeros, x_mm=zeros, y_mm=zeros, height_mm=np.full(n_events, height_mm), atomic_number=zeros,
         shell=zeros, photoelectron_kev=zeros, azimuth_rad=zeros, polar_rad=zeros, photoelectron_dir=no_direction,
-        auger_kev=zeros, auger_dir=no_direction, fluorescence_kev=zeros, local_kev=np.full(n_events, deposit_kev),
-        time_s=zeros)
+        auger_kev=zeros, auger_dir=no_direction, fluorescence_kev=zeros,
+        fluorescence=FluorescencePaths(fate=np.zeros(n_events, np.int8), x_mm=zeros + np.nan, y_mm=zeros + np.nan,
+                                       z_mm=zeros + np.nan, deposit_kev=zeros),
+        local_kev=np.full(n_events, deposit_kev), time_s=zeros)
     triggered, roi, n_signal, signal, _, n_ion = sim.events(point_deposits, np.ones(n_events))
     assert triggered.all()
     offsets = np.concatenate([[0], np.cumsum(n_signal)])

@@ -184,13 +184,17 @@ def nearest_pixel(x_mm, y_mm, x0_mm, y0_mm, pitch_mm, row_pitch_mm, unshifted_of
 
 
 @jit
-def simulate_events(rng, x0_mm, y0_mm, z0_mm, pe_dir, pe_kev, auger_dir, auger_kev, local_kev, gain_factor,
+def simulate_events(rng, x0_mm, y0_mm, z0_mm, pe_dir, pe_kev, auger_dir, auger_kev, local_kev, second_xyz_mm,
+                    second_kev, gain_factor,
                     gap_mm, atom_z, atom_density_cm3, rho_z_over_a, mean_excitation_kev,
                     w_kev, fano, diffusion_mm_sqrt_mm, spread_mm, mean_gain, theta,
                     pixel_gain, n_columns, n_rows, x_origin_mm, y_origin_mm, pitch_mm, row_pitch_mm,
                     unshifted_offset, noise_e, e_per_adc, threshold_e, min_pixels, margin, zero_suppression_e,
                     seg, count, charge, touched, signal):
     """Tracks, ionization, drift, avalanche, pixels, noise, trigger and ROI for a batch of converted photons.
+
+    Energy is deposited as segments: ``local_kev`` at the conversion point, ``second_kev`` (re-absorbed
+    fluorescence, where > 0) at ``second_xyz_mm``, then the photoelectron and Auger tracks.
 
     Returns
     -------
@@ -217,9 +221,14 @@ def simulate_events(rng, x0_mm, y0_mm, z0_mm, pe_dir, pe_kev, auger_dir, auger_k
     int16_max = 32767.0
     pos = 0
     for i in range(n):
-        # --- energy deposits: local (binding energy not carried away), photoelectron, Auger electron
+        # --- energy deposits: local (binding energy not carried away), re-absorbed fluorescence, photoelectron,
+        #     Auger electron
         _put_segment(seg, 0, x0_mm[i], y0_mm[i], z0_mm[i], x0_mm[i], y0_mm[i], z0_mm[i], local_kev[i])
         n_seg = 1
+        if second_kev[i] > 0:
+            _put_segment(seg, 1, second_xyz_mm[i, 0], second_xyz_mm[i, 1], second_xyz_mm[i, 2], second_xyz_mm[i, 0],
+                         second_xyz_mm[i, 1], second_xyz_mm[i, 2], second_kev[i])
+            n_seg = 2
         if pe_kev[i] > 0:
             n_seg, path = transport_electron(rng, x0_mm[i], y0_mm[i], z0_mm[i], pe_dir[i, 0], pe_dir[i, 1],
                                              pe_dir[i, 2], pe_kev[i], gap_mm, atom_z, atom_density_cm3,

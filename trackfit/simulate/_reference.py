@@ -13,6 +13,7 @@ import numpy as np
 
 from ..hexgrid import HexGrid
 from ._kernels import CUTOFF_KEV, JOY_LUO_K, JOY_LUO_KEV_CM
+from .transport import transverse_diffusion
 
 __all__ = ["stopping_power_kev_cm", "elastic_cross_section_cm2", "transport_electron", "simulate_events"]
 
@@ -124,13 +125,17 @@ def simulate_events(rng, photons, gain_factor, mixture, config, pixel_gain=None)
     z_atoms, n_atoms, rho_z_over_a, mean_excitation = mixture.stopping_constants()
     gap_mm = gas.gap_cm * 10.0
     w_kev, fano = gas.w_value_ev / 1000.0, gas.fano_factor
-    diffusion = config.drift.diffusion_um_per_sqrt_cm * 1e-3 / math.sqrt(10.0)
+    diffusion = transverse_diffusion(config.gas, config.drift).um_per_sqrt_cm * 1e-3 / math.sqrt(10.0)
     spread = mult.transfer_spread_um * 1e-3
     pixel_gain = np.ones(grid.shape) if pixel_gain is None else pixel_gain
     out = []
     for i in range(len(photons)):
         x0, y0, z0 = photons.x_mm[i], photons.y_mm[i], photons.height_mm[i]
         segments = [(x0, y0, z0, x0, y0, z0, photons.local_kev[i])]
+        second = photons.fluorescence
+        if second.deposit_kev[i] > 0:
+            xs, ys, zs = second.x_mm[i], second.y_mm[i], second.z_mm[i]
+            segments.append((xs, ys, zs, xs, ys, zs, second.deposit_kev[i]))
         path = 0.0
         if photons.photoelectron_kev[i] > 0:
             d = photons.photoelectron_dir[i]

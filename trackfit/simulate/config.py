@@ -33,6 +33,8 @@ __all__ = [
 ]
 
 SPECTRA = ("lines", "flat", "powerlaw", "table")
+#: photoabsorption tables of xraydb (the same tuple as ``gas.CROSS_SECTION_TABLES``; config does not import xraydb)
+CROSS_SECTION_TABLES = ("elam", "chantler")
 BEAMS = ("pencil", "gaussian", "flat")
 
 
@@ -179,6 +181,9 @@ class GasConfig:
         Mean energy per ionization electron of the mixture.
     fano_factor : float
         Fano factor of the ionization count (0 <= F < 1).
+    cross_sections : {"elam", "chantler"}
+        Photoabsorption table of xraydb used for the gas (conversion and fluorescence absorption); the two
+        differ by a few per cent (``docs/simulator.md``). The window always uses Elam's.
     """
 
     molecules: tuple[str, ...] = ("He", "C2H6O")
@@ -188,6 +193,7 @@ class GasConfig:
     gap_cm: float = 1.0
     w_value_ev: float = 24.5
     fano_factor: float = 0.2
+    cross_sections: str = "elam"
 
     def __post_init__(self):
         _set(self, "molecules", tuple(str(m) for m in self.molecules))
@@ -204,15 +210,40 @@ class GasConfig:
         _finite("gas.w_value_ev", self.w_value_ev, positive=True)
         _finite("gas.fano_factor", self.fano_factor, non_negative=True)
         _check(self.fano_factor < 1, "gas.fano_factor", "< 1", self.fano_factor)
+        _check(self.cross_sections in CROSS_SECTION_TABLES, "gas.cross_sections", f"one of {CROSS_SECTION_TABLES}",
+               self.cross_sections)
 
 
 @dataclass(frozen=True, kw_only=True)
 class DriftConfig:
-    """Drift to the multiplier: transverse diffusion ``sigma = diffusion_um_per_sqrt_cm * sqrt(drift length)``."""
+    """Drift to the multiplier: transverse diffusion ``sigma = D_T * sqrt(drift length)``.
 
-    diffusion_um_per_sqrt_cm: float = 80.0
+    ``D_T`` follows from the drift field, the gas temperature and the characteristic energy ε_k of the mixture,
+    ``D_T = sqrt(2 ε_k / (e E))``, never below the thermal limit ε_k = kT
+    (:func:`trackfit.simulate.transport.transverse_diffusion`).
+
+    Parameters
+    ----------
+    field_v_per_cm : float
+        Drift field, V/cm.
+    characteristic_energy_ratio : float
+        ε_k / kT of the mixture (>= 1); 0 takes the value of the mixture's entry in
+        :data:`trackfit.simulate.transport.MIXTURE_TRANSPORT`.
+    diffusion_um_per_sqrt_cm : float
+        Transverse diffusion coefficient set by hand, µm/√cm (for toy studies; it is not floored at the thermal
+        limit); 0 computes it from the field as above.
+    """
+
+    field_v_per_cm: float = 2000.0
+    characteristic_energy_ratio: float = 0.0
+    diffusion_um_per_sqrt_cm: float = 0.0
 
     def __post_init__(self):
+        _finite("drift.field_v_per_cm", self.field_v_per_cm, positive=True)
+        _finite("drift.characteristic_energy_ratio", self.characteristic_energy_ratio, non_negative=True)
+        _check(self.characteristic_energy_ratio == 0 or self.characteristic_energy_ratio >= 1,
+               "drift.characteristic_energy_ratio", "0 (from the mixture) or >= 1 (the thermal limit is 1)",
+               self.characteristic_energy_ratio)
         _finite("drift.diffusion_um_per_sqrt_cm", self.diffusion_um_per_sqrt_cm, non_negative=True)
 
 
@@ -232,9 +263,15 @@ class MultiplierConfig:
         Relative RMS of a smooth per-pixel gain map (0: uniform gain). The map is drawn once per run.
     gain_map_scale_mm : float
         Correlation length of the gain map.
+    gain_cell_rms : float
+        Relative RMS of a cell structure of the gain (independent deviations on square cells); 0: none.
+    gain_cell_mm : float
+        Side of the cells.
     gain_drift_fraction, gain_drift_time_s : float
         Slow gain drift ``G(t) = G0 * (1 - gain_drift_fraction * (1 - exp(-t / gain_drift_time_s)))``
         (charging of the multiplier towards an equilibrium); 0 switches it off.
+
+    The gain model is described in :mod:`trackfit.simulate.gain`.
     """
 
     gain: float = 2000.0
@@ -242,6 +279,8 @@ class MultiplierConfig:
     transfer_spread_um: float = 10.0
     gain_map_rms: float = 0.0
     gain_map_scale_mm: float = 1.0
+    gain_cell_rms: float = 0.0
+    gain_cell_mm: float = 2.0
     gain_drift_fraction: float = 0.0
     gain_drift_time_s: float = 3600.0
 
@@ -253,6 +292,9 @@ class MultiplierConfig:
         _finite("multiplier.gain_map_rms", self.gain_map_rms, non_negative=True)
         _check(self.gain_map_rms < 0.5, "multiplier.gain_map_rms", "< 0.5", self.gain_map_rms)
         _finite("multiplier.gain_map_scale_mm", self.gain_map_scale_mm, positive=True)
+        _finite("multiplier.gain_cell_rms", self.gain_cell_rms, non_negative=True)
+        _check(self.gain_cell_rms < 0.5, "multiplier.gain_cell_rms", "< 0.5", self.gain_cell_rms)
+        _finite("multiplier.gain_cell_mm", self.gain_cell_mm, positive=True)
         _finite("multiplier.gain_drift_fraction", self.gain_drift_fraction, non_negative=True)
         _check(self.gain_drift_fraction < 1, "multiplier.gain_drift_fraction", "< 1", self.gain_drift_fraction)
         _finite("multiplier.gain_drift_time_s", self.gain_drift_time_s, positive=True)

@@ -13,8 +13,11 @@ from ..events import EventBatch
 from ..io.raw import RawEventWriter
 from . import _kernels
 from .config import SimConfig
+from .fluorescence import FLUORESCENCE_FATES
+from .gain import gain_drift_factor, pixel_gain_map
 from .gas import SHELL_NAMES, GasMixture
 from .photons import PhotonSampler
+from .transport import transverse_diffusion
 
 __all__ = ["SimResult", "run", "TRUTH_COLUMNS", "pixel_gain_map"]
 
@@ -33,35 +36,20 @@ TRUTH_COLUMNS = {
     "emission_azimuth_rad": "photoelectron azimuth in (-pi, pi], from +x towards +y",
     "emission_polar_rad": "photoelectron angle from the photon direction (-z)",
     "auger_energy_kev": "Auger electron energy (0 when none)",
-    "fluorescence_energy_kev": "fluorescence photon that left the cell (0 when none)",
+    "fluorescence_energy_kev": "energy of the fluorescence photon emitted at the conversion point (0 when none)",
+    "fluorescence_fate": "where the fluorescence photon went: index into the comma-separated run attribute "
+                         "fluorescence_fates (none, absorbed, window, multiplier, beyond_chip)",
+    "fluorescence_x_mm": "absorption point of the fluorescence photon, or where it left the gap (NaN when none)",
+    "fluorescence_y_mm": "absorption point of the fluorescence photon, or where it left the gap (NaN when none)",
+    "fluorescence_z_mm": "height of that point above the multiplier (NaN when none)",
     "track_length_mm": "path length of the photoelectron",
     "ionization_electrons": "ionization electrons produced by the event",
     "gain_relative": "pixel gain at the conversion point times the gain drift factor at the event time",
 }
 
 
-def pixel_gain_map(config: SimConfig, rng) -> np.ndarray | None:
-    """Relative gain of every pixel, shape ``(n_rows, n_columns)``, mean 1; ``None`` when the gain is uniform.
-
-    A smooth random field: white noise low-pass filtered with a Gaussian of ``gain_map_scale_mm`` and scaled to the
-    relative RMS ``gain_map_rms``.
-    """
-    m = config.multiplier
-    if m.gain_map_rms == 0:
-        return None
-    from scipy.ndimage import gaussian_filter
-
-    grid = config.grid
-    noise = rng.standard_normal(grid.shape)
-    sigma = (m.gain_map_scale_mm / grid.row_pitch_mm, m.gain_map_scale_mm / grid.pitch_mm)
-    field_ = gaussian_filter(noise, sigma=sigma, mode="wrap")
-    field_ = (field_ - field_.mean()) / field_.std()
-    return np.clip(1.0 + m.gain_map_rms * field_, 0.05, None)
-
-
 def _gain_drift(config: SimConfig, time_s: np.ndarray) -> np.ndarray:
-    m = config.multiplier
-    return 1.0 - m.gain_drift_fraction * -np.expm1(-time_s / m.gain_drift_time_s)
+    return gain_drift_factor(config, time_s)
 
 
 @dataclass(eq=False)
@@ -83,6 +71,8 @@ class SimResult:
     converted_rate_hz : float
     pixel_gain : ndarray or None
         The per-pixel relative gain map used (None: uniform).
+    diffusion_um_per_sqrt_cm : float
+        Transverse diffusion coefficient used (from the drift field and the gas, or set by hand).
     """
 
     batch: EventBatch
@@ -93,6 +83,7 @@ class SimResult:
     detection_efficiency: float
     converted_rate_hz: float
     pixel_gain: np.ndarray | None = field(default=None, repr=False)
+    diffusion_um_per_sqrt_cm: float = float("nan")
 
     @property
     def truth(self) -> dict:
@@ -114,10 +105,12 @@ class SimResult:
             "detection_efficiency": float(self.detection_efficiency),
             "converted_rate_hz": float(self.converted_rate_hz),
             "shell_names": ",".join(SHELL_NAMES),
+            "fluorescence_fates": ",".join(FLUORESCENCE_FATES),
+            "diffusion_um_per_sqrt_cm": float(self.diffusion_um_per_sqrt_cm),
             "description": self.config.description,
         }
 
-    def write(self, path, *, overwrite: bool = False, compression: str = "lzf", created_utc: str | None = None):
+    def write(self, path, *, overwrite: bool = False, compression: str = "gzip", created_utc: str | None = None):
         """Write a raw event file (format v1) with ``/truth``, the run attributes and, when the gain is not
         uniform, the gain map as ``/simulation/pixel_gain``.
 
@@ -170,6 +163,7 @@ class _Simulator:
         self.photons = PhotonSampler(config, self.mixture)
         grid = config.grid
         self.grid = grid
+        self.diffusion_um_per_sqrt_cm = transverse_diffusion(config.gas, config.drift).um_per_sqrt_cm
         self.pixel_gain = pixel_gain_map(config, rng)
         self._pixel_gain_flat = (np.ones(grid.n_pixels) if self.pixel_gain is None
                                  else np.ascontiguousarray(self.pixel_gain.ravel(), dtype=np.float64))
@@ -183,13 +177,16 @@ class _Simulator:
     def events(self, p, gain_factor):
         """Run the event kernel on a :class:`~trackfit.simulate.photons.PhotonBatch` (see its Returns)."""
         config, grid = self.config, self.grid
-        drift, mult, ro = config.drift, config.multiplier, config.readout
+        mult, ro = config.multiplier, config.readout
         z, n_atoms, rho_z_over_a, mean_excitation = self.consts
+        second_xyz = np.ascontiguousarray(np.column_stack([p.fluorescence.x_mm, p.fluorescence.y_mm,
+                                                           p.fluorescence.z_mm]))
         out = _kernels.simulate_events(
             self.rng, p.x_mm, p.y_mm, p.height_mm, p.photoelectron_dir, p.photoelectron_kev, p.auger_dir,
-            p.auger_kev, p.local_kev, gain_factor, config.gas.gap_cm * 10.0, z, n_atoms, rho_z_over_a,
+            p.auger_kev, p.local_kev, second_xyz, p.fluorescence.deposit_kev, gain_factor, config.gas.gap_cm * 10.0,
+            z, n_atoms, rho_z_over_a,
             mean_excitation, config.gas.w_value_ev / 1000.0, config.gas.fano_factor,
-            drift.diffusion_um_per_sqrt_cm * 1e-3 / np.sqrt(10.0), mult.transfer_spread_um * 1e-3,
+            self.diffusion_um_per_sqrt_cm * 1e-3 / np.sqrt(10.0), mult.transfer_spread_um * 1e-3,
             mult.gain, mult.polya_theta, self._pixel_gain_flat, grid.n_columns, grid.n_rows,
             -grid.extent_mm[0], -grid.extent_mm[2], grid.pitch_mm, grid.row_pitch_mm,
             0 if grid.shifted_rows == "odd" else 1, ro.noise_electrons, ro.electrons_per_adc,
@@ -218,6 +215,10 @@ class _Simulator:
             "emission_polar_rad": p.polar_rad,
             "auger_energy_kev": p.auger_kev,
             "fluorescence_energy_kev": p.fluorescence_kev,
+            "fluorescence_fate": p.fluorescence.fate,
+            "fluorescence_x_mm": p.fluorescence.x_mm,
+            "fluorescence_y_mm": p.fluorescence.y_mm,
+            "fluorescence_z_mm": p.fluorescence.z_mm,
             "track_length_mm": path_mm,
             "ionization_electrons": n_ion.astype(np.int32),
             "gain_relative": map_at * gain_factor,
@@ -296,4 +297,5 @@ def run(config: SimConfig, n_events: int, rng=None, *, progress=None) -> SimResu
     result = EventBatch.concatenate(batches) if batches else EventBatch.empty(config.grid)
     return SimResult(batch=result, config=config, seed=seed, n_converted=n_converted,
                      n_not_triggered=n_converted - len(result), detection_efficiency=sim.photons.efficiency,
-                     converted_rate_hz=sim.photons.converted_rate_hz, pixel_gain=sim.pixel_gain)
+                     converted_rate_hz=sim.photons.converted_rate_hz, pixel_gain=sim.pixel_gain,
+                     diffusion_um_per_sqrt_cm=sim.diffusion_um_per_sqrt_cm)

@@ -1,5 +1,5 @@
-"""Photon stage of the simulator: which photons convert in the gas, where, on which atom and shell, and what
-electrons leave the atom (vectorised numpy).
+"""Photon stage of the simulator: which photons convert in the gas, where, on which atom and shell, what
+electrons leave the atom and where its fluorescence photon goes (vectorised numpy).
 
 Only photons that convert in the gap are generated: the spectrum is weighted by the window transmission and the
 gap's absorption probability (Beer-Lambert with xraydb cross sections), the conversion depth follows the
@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .fluorescence import FluorescencePaths, track_fluorescence
 from .gas import SHELL_NAMES, GasMixture, relaxation_data, window_transmission
 from .physics import emission_directions, isotropic_directions
 
@@ -26,7 +27,8 @@ class PhotonBatch:
     """Converted photons and the electrons they release (arrays of one length n).
 
     ``height_mm`` is the height of the conversion point above the multiplier (the drift length); directions are
-    unit vectors in the detector frame (photon along -z).
+    unit vectors in the detector frame (photon along -z). ``fluorescence_kev`` is the energy of the fluorescence
+    photon emitted (0 when none) and ``fluorescence`` where it went (escape or a second deposit).
     """
 
     energy_kev: np.ndarray
@@ -42,6 +44,7 @@ class PhotonBatch:
     auger_kev: np.ndarray
     auger_dir: np.ndarray
     fluorescence_kev: np.ndarray
+    fluorescence: FluorescencePaths
     local_kev: np.ndarray
     time_s: np.ndarray
 
@@ -140,7 +143,7 @@ class PhotonSampler:
             shell[sel] = codes[pick]
             binding[sel] = edges[pick]
         photoelectron = np.maximum(energy - binding, 0.0)
-        # relaxation of the vacancy: Auger electron, fluorescence photon (leaves the cell) or local deposit
+        # relaxation of the vacancy: Auger electron, fluorescence photon (tracked below) or local deposit
         auger = np.zeros(n)
         fluorescence = np.zeros(n)
         u_relax = rng.random(n)
@@ -160,6 +163,7 @@ class PhotonSampler:
         azimuth, polar, pe_dir = emission_directions(photoelectron, s.polarization_degree,
                                                      np.deg2rad(s.polarization_angle_deg), rng)
         auger_dir = isotropic_directions(n, rng)
+        paths = track_fluorescence(x, y, height_mm, fluorescence, mixture, self.config.grid, rng)
         times = self._time_s + np.cumsum(rng.exponential(1.0 / self.converted_rate_hz, n))
         if n:
             self._time_s = float(times[-1])
@@ -167,5 +171,6 @@ class PhotonSampler:
             energy_kev=energy, x_mm=x, y_mm=y, height_mm=height_mm,
             atomic_number=mixture.atomic_number[element].astype(np.int16), shell=shell,
             photoelectron_kev=photoelectron, azimuth_rad=azimuth, polar_rad=polar, photoelectron_dir=pe_dir,
-            auger_kev=auger, auger_dir=auger_dir, fluorescence_kev=fluorescence, local_kev=local, time_s=times,
+            auger_kev=auger, auger_dir=auger_dir, fluorescence_kev=fluorescence, fluorescence=paths, local_kev=local,
+            time_s=times,
         )
