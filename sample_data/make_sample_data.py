@@ -61,7 +61,7 @@ def main(argv=None):
     for name, (n_events, seed, changes, description) in RUNS.items():
         config = config_for(changes, description)
         result = run(config, max(1, round(n_events * args.scale)), rng=seed)
-        path = result.write(args.out / name, overwrite=True, compression="lzf")
+        path = result.write(args.out / name, overwrite=True, compression="gzip")
         size = path.stat().st_size
         total += size
         print(f"{name:34s} {len(result.batch):6d} events  {size / 1e6:5.2f} MB  seed {seed}  {description}")

@@ -73,3 +73,11 @@ def test_flat_field_gain_map_calibration_recovers_the_simulated_map():
     # gain within a cell: agreement to 0.01, while the cells differ by several per cent
     np.testing.assert_allclose(measured, expected, atol=0.01)
     assert np.ptp(expected) > 0.06
+
+
+def test_runs_with_different_seeds_share_the_detector_gain_map():
+    config = small_chip(_with(load_preset("hedme-1atm-1cm"), gain_map_rms=0.1))
+    a, b = run(config, 2, rng=1).pixel_gain, run(config, 2, rng=2).pixel_gain
+    np.testing.assert_array_equal(a, b)
+    other = run(_with(config, gain_map_seed=config.multiplier.gain_map_seed + 1), 2, rng=1).pixel_gain
+    assert not np.array_equal(a, other)

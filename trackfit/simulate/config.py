@@ -267,6 +267,9 @@ class MultiplierConfig:
         Relative RMS of a cell structure of the gain (independent deviations on square cells); 0: none.
     gain_cell_mm : float
         Side of the cells.
+    gain_map_seed : int
+        Seed of the gain map (smooth part and cells): the map belongs to the detector, so runs with different
+        seeds share it.
     gain_drift_fraction, gain_drift_time_s : float
         Slow gain drift ``G(t) = G0 * (1 - gain_drift_fraction * (1 - exp(-t / gain_drift_time_s)))``
         (charging of the multiplier towards an equilibrium); 0 switches it off.
@@ -281,6 +284,7 @@ class MultiplierConfig:
     gain_map_scale_mm: float = 1.0
     gain_cell_rms: float = 0.0
     gain_cell_mm: float = 2.0
+    gain_map_seed: int = 0
     gain_drift_fraction: float = 0.0
     gain_drift_time_s: float = 3600.0
 
@@ -295,6 +299,8 @@ class MultiplierConfig:
         _finite("multiplier.gain_cell_rms", self.gain_cell_rms, non_negative=True)
         _check(self.gain_cell_rms < 0.5, "multiplier.gain_cell_rms", "< 0.5", self.gain_cell_rms)
         _finite("multiplier.gain_cell_mm", self.gain_cell_mm, positive=True)
+        _check(isinstance(self.gain_map_seed, int) and not isinstance(self.gain_map_seed, bool)
+               and self.gain_map_seed >= 0, "multiplier.gain_map_seed", "an integer >= 0", self.gain_map_seed)
         _finite("multiplier.gain_drift_fraction", self.gain_drift_fraction, non_negative=True)
         _check(self.gain_drift_fraction < 1, "multiplier.gain_drift_fraction", "< 1", self.gain_drift_fraction)
         _finite("multiplier.gain_drift_time_s", self.gain_drift_time_s, positive=True)

@@ -164,7 +164,7 @@ class _Simulator:
         grid = config.grid
         self.grid = grid
         self.diffusion_um_per_sqrt_cm = transverse_diffusion(config.gas, config.drift).um_per_sqrt_cm
-        self.pixel_gain = pixel_gain_map(config, rng)
+        self.pixel_gain = pixel_gain_map(config)
         self._pixel_gain_flat = (np.ones(grid.n_pixels) if self.pixel_gain is None
                                  else np.ascontiguousarray(self.pixel_gain.ravel(), dtype=np.float64))
         self.consts = self.mixture.stopping_constants()

@@ -49,15 +49,20 @@ def _cell_field(grid, cell_mm: float, rng) -> np.ndarray:
     return values[iy, ix]
 
 
-def pixel_gain_map(config, rng) -> np.ndarray | None:
+def pixel_gain_map(config, rng=None) -> np.ndarray | None:
     """Relative gain of every pixel, shape ``(n_rows, n_columns)``; ``None`` when the gain is uniform.
+
+    The map is a property of the detector, not of a run: by default it is drawn from its own generator seeded
+    with ``multiplier.gain_map_seed``, so every run of a config (whatever its seed) sees the same map, and a
+    gain map calibrated on one run applies to the others.
 
     Parameters
     ----------
     config : SimConfig
         Uses ``config.multiplier`` (``gain_map_rms``, ``gain_map_scale_mm``, ``gain_cell_rms``,
-        ``gain_cell_mm``) and the chip of ``config.readout``.
-    rng : numpy.random.Generator
+        ``gain_cell_mm``, ``gain_map_seed``) and the chip of ``config.readout``.
+    rng : numpy.random.Generator, optional
+        Draw the map from this generator instead (studies of many detectors).
 
     Returns
     -------
@@ -69,6 +74,8 @@ def pixel_gain_map(config, rng) -> np.ndarray | None:
     m = config.multiplier
     if m.gain_map_rms == 0 and m.gain_cell_rms == 0:
         return None
+    if rng is None:
+        rng = np.random.default_rng(m.gain_map_seed)
     grid = config.grid
     gain = np.ones(grid.shape)
     if m.gain_map_rms > 0:
