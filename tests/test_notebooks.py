@@ -73,9 +73,10 @@ def test_calibration_report(tmp_path):
     assert calibration.parts() == summary["parts"] == ["energy_scale", "gain_map", "modulation_factor",
                                                        "spurious_modulation"]
     (e_low, mu_low, err_low), (e_high, mu_high, err_high) = summary["modulation_points"]
-    # docs/methods.md §9 sanity band for He/DME 20/80, 1 atm, 1 cm (from memory, +-0.1): ~0.32 at 3.7, ~0.47 at 5.9 keV
-    assert e_low == pytest.approx(3.7, abs=0.2) and abs(mu_low - 0.32) < 0.1
-    assert e_high == pytest.approx(5.9, abs=0.2) and abs(mu_high - 0.47) < 0.1
+    # published bands for He/DME 20/80, 1 atm, 1 cm cells (docs/simulator.md, Validation; from memory):
+    # 0.30-0.40 at 3.7 keV, 0.45-0.55 at 5.9 keV; 3 statistical errors of the run allowed beyond the band
+    assert e_low == pytest.approx(3.7, abs=0.2) and 0.30 - 3 * err_low <= mu_low <= 0.40 + 3 * err_low
+    assert e_high == pytest.approx(5.9, abs=0.2) and 0.45 - 3 * err_high <= mu_high <= 0.55 + 3 * err_high
     assert mu_high > mu_low  # the modulation factor rises with energy (docs/methods.md §2 pitfalls)
     # the calibration recovers the known beams of its own runs (100 % polarized, at 0 and 30 degrees)
     for check in summary["checks"].values():

@@ -103,5 +103,8 @@ def test_no_fluorescence_no_second_deposit(hedme_6kev_pencil):
     t = result.truth
     none = t["fluorescence_fate"] == FATE["none"]
     assert np.all(t["fluorescence_energy_kev"][none] == 0) and np.all(np.isnan(t["fluorescence_x_mm"][none]))
-    # C and O K photons (xraydb yields 0.0014 / 0.0058) are absorbed within microns: never escape in DME
-    assert not np.any(np.isin(t["fluorescence_fate"], ESCAPED))
+    # C and O K photons (xraydb yields 0.0014 / 0.0058; absorption lengths ≈1-2 mm in this gas) are rare and
+    # mostly re-absorbed: escape peaks in He/DME are below 1e-3 of the events [derived: ω·λ/(2L) ≈ 3e-4]
+    emitted = t["fluorescence_fate"] != FATE["none"]
+    assert emitted.mean() < 0.01
+    assert np.isin(t["fluorescence_fate"], ESCAPED).mean() < 0.003
