@@ -41,6 +41,12 @@ def test_hedme_fe55_flat_field_resolution_in_published_band():
     assert FE55_FWHM_BAND[0] - 3 * err <= fwhm <= FE55_FWHM_BAND[1] + 3 * err
 
 
+def test_dme_fe55_flat_field_resolution_near_published_value():
+    # ≈18 % FWHM at 6 keV for a pure-DME 0.8 atm detector [Li et al. 2015, arXiv:1509.05595]; band ±3 points
+    fwhm, err = _fe55_fwhm(load_preset("dme-0.8atm-1cm"), 6000, seed=56)
+    assert 0.15 - 3 * err <= fwhm <= 0.21 + 3 * err
+
+
 def test_fano_and_polya_alone_are_below_the_published_resolution():
     # budget FWHM = 2.355·sqrt((F + 1/(1+θ))·W/E) for a spot without gain map [docs/methods.md §6, common practice]
     config = load_preset("hedme-1atm-1cm")

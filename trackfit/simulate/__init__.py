@@ -9,6 +9,11 @@ What to use when
   :func:`list_presets` for the shipped designs; TOML in and out.
 * :mod:`trackfit.simulate.physics` - the samplers on their own (Sauter directions, Polya gain, ...), for studies.
 * :class:`~trackfit.simulate.gas.GasMixture` - absorption efficiency, stopping power of a mixture.
+* :mod:`trackfit.simulate.transport` - transverse diffusion from the drift field, temperature and gas
+  (:func:`~trackfit.simulate.transport.transverse_diffusion`, thermal limit, characteristic energies).
+* :mod:`trackfit.simulate.fluorescence` - where fluorescence photons go (escape, re-absorption).
+* :mod:`trackfit.simulate.gain` - the multiplier's gain map (smooth part, cells) and gain drift.
+* :mod:`trackfit.design` (analysis layer) - efficiency, μ(E) and resolution of a design, sweeps of one value.
 
 The physics chain and its approximations are described in ``docs/simulator.md``.
 """
