@@ -81,3 +81,14 @@ def test_runs_with_different_seeds_share_the_detector_gain_map():
     np.testing.assert_array_equal(a, b)
     other = run(_with(config, gain_map_seed=config.multiplier.gain_map_seed + 1), 2, rng=1).pixel_gain
     assert not np.array_equal(a, other)
+
+
+def test_smooth_map_correlation_length():
+    # white noise filtered with a Gaussian of width s has the autocorrelation exp(-d²/(4 s²)) [derived];
+    # s = 0.4 mm on a 15 x 15 mm chip: ~1000 independent patches, sample error ~0.03
+    config = _with(load_preset("hedme-1atm-1cm"), gain_map_rms=0.1, gain_map_scale_mm=0.4, gain_cell_rms=0.0)
+    gain = pixel_gain_map(config, np.random.default_rng(5))
+    f = (gain - gain.mean()) / gain.std()
+    for d_mm in (0.4, 0.8):
+        lag = round(d_mm / config.grid.pitch_mm)
+        assert np.mean(f * np.roll(f, lag, axis=1)) == pytest.approx(np.exp(-d_mm**2 / (4 * 0.4**2)), abs=0.06)

@@ -21,6 +21,8 @@ Alkhazov 1970, NIM 89, 155 (Polya avalanche statistics). Charging of the multipl
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 __all__ = ["pixel_gain_map", "gain_drift_factor", "MIN_RELATIVE_GAIN"]
@@ -30,11 +32,13 @@ MIN_RELATIVE_GAIN = 0.05
 
 
 def _smooth_field(grid, scale_mm: float, rng) -> np.ndarray:
-    from scipy.ndimage import gaussian_filter
+    """White noise low-pass filtered with a Gaussian of ``scale_mm`` (periodic, in Fourier space), mean 0, RMS 1."""
+    from scipy.ndimage import fourier_gaussian
 
     noise = rng.standard_normal(grid.shape)
     sigma = (scale_mm / grid.row_pitch_mm, scale_mm / grid.pitch_mm)
-    field_ = gaussian_filter(noise, sigma=sigma, mode="wrap")
+    spectrum = fourier_gaussian(np.fft.rfft2(noise), sigma=sigma, n=noise.shape[1])
+    field_ = np.fft.irfft2(spectrum, s=noise.shape)
     return (field_ - field_.mean()) / field_.std()
 
 
@@ -69,19 +73,31 @@ def pixel_gain_map(config, rng=None) -> np.ndarray | None:
     ndarray or None
         ``(1 + gain_map_rms * s) * (1 + gain_cell_rms * c)`` with ``s`` the smooth field and ``c`` the cell
         field (each of mean 0 and RMS 1 over the chip; the cell field has RMS 1 in expectation), clipped at
-        :data:`MIN_RELATIVE_GAIN`. The smooth part is drawn first, so adding cells does not change it.
+        :data:`MIN_RELATIVE_GAIN`. The smooth part is drawn first, so adding cells does not change it. The
+        detector's own map (no ``rng``) is computed once per process and returned read-only.
     """
     m = config.multiplier
     if m.gain_map_rms == 0 and m.gain_cell_rms == 0:
         return None
-    if rng is None:
-        rng = np.random.default_rng(m.gain_map_seed)
-    grid = config.grid
+    if rng is None:              # the detector's own map: the same for every run, computed once per process
+        return _detector_map(config.grid, m.gain_map_rms, m.gain_map_scale_mm, m.gain_cell_rms, m.gain_cell_mm,
+                             m.gain_map_seed)
+    return _draw_map(config.grid, m.gain_map_rms, m.gain_map_scale_mm, m.gain_cell_rms, m.gain_cell_mm, rng)
+
+
+@functools.lru_cache(maxsize=8)
+def _detector_map(grid, rms, scale_mm, cell_rms, cell_mm, seed) -> np.ndarray:
+    gain = _draw_map(grid, rms, scale_mm, cell_rms, cell_mm, np.random.default_rng(seed))
+    gain.flags.writeable = False
+    return gain
+
+
+def _draw_map(grid, rms, scale_mm, cell_rms, cell_mm, rng) -> np.ndarray:
     gain = np.ones(grid.shape)
-    if m.gain_map_rms > 0:
-        gain *= 1.0 + m.gain_map_rms * _smooth_field(grid, m.gain_map_scale_mm, rng)
-    if m.gain_cell_rms > 0:
-        gain *= 1.0 + m.gain_cell_rms * _cell_field(grid, m.gain_cell_mm, rng)
+    if rms > 0:
+        gain *= 1.0 + rms * _smooth_field(grid, scale_mm, rng)
+    if cell_rms > 0:
+        gain *= 1.0 + cell_rms * _cell_field(grid, cell_mm, rng)
     return np.clip(gain, MIN_RELATIVE_GAIN, None)
 
 
