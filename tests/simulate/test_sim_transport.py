@@ -86,3 +86,12 @@ def test_run_uses_and_records_the_diffusion(tmp_path):
 def test_all_presets_load_and_default_config_has_transport_data():
     assert transverse_diffusion(SimConfig().gas, SimConfig().drift).origin == "He/DME"
     assert len(list_presets()) >= 3
+
+
+def test_command_line_names_the_missing_transport_keys(tmp_path, capsys):
+    from trackfit.cli import main
+
+    config = tmp_path / "neon.toml"
+    config.write_text('[gas]\nmolecules = ["Ne", "CO2"]\nfractions = [0.9, 0.1]\n')
+    assert main(["simulate", str(config), "-n", "5", "-o", str(tmp_path / "x.h5"), "--no-progress"]) != 0
+    assert "drift.characteristic_energy_ratio" in capsys.readouterr().err

@@ -111,3 +111,18 @@ def test_cross_section_tables_differ_by_a_few_percent():
         energies)
     spread = 1 - chantler / elam
     assert np.all((spread > 0.03) & (spread < 0.07))
+
+
+@pytest.mark.slow
+def test_docs_table_script_runs(capsys):
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[2] / "docs" / "simulator_tables.py"
+    spec = importlib.util.spec_from_file_location("simulator_tables", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    module.main(["--events", "300"])
+    out = capsys.readouterr().out
+    for heading in ("## 1. Validation", "## 2. Fe-55", "## 3. Argon", "## 4. Sensitivity", "## 5. Gap absorption"):
+        assert heading in out
