@@ -110,13 +110,15 @@ class SimResult:
             "description": self.config.description,
         }
 
-    def write(self, path, *, overwrite: bool = False, compression: str = "gzip", created_utc: str | None = None):
+    def write(self, path, *, overwrite: bool = False, compression: str = "none", created_utc: str | None = None):
         """Write a raw event file (format v1) with ``/truth``, the run attributes and, when the gain is not
         uniform, the gain map as ``/simulation/pixel_gain``.
 
         ``created_utc`` defaults to the current time for unseeded runs; seeded runs are a function of
         (config, seed, trackfit version) and get a fixed time (``SOURCE_DATE_EPOCH`` if set, else the epoch),
-        so the same seed gives a bit-identical file.
+        so the same seed gives a bit-identical file. ``compression`` defaults to ``"none"``, the raw format's
+        default (fastest to reprocess); ``"gzip"`` is deterministic and small (the sample data use it), ``"lzf"``
+        is not bit-reproducible (its compressor leaves part of its hash table uninitialised).
         """
         if created_utc is None and self.seed is not None:
             epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
