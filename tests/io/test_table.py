@@ -197,3 +197,27 @@ def test_version_1_tables_are_read_with_the_new_column_names(tmp_path):
     assert np.array_equal(table["centroid_y_mm"], old["bary_y_mm"]) and table["m2_major_mm2"][0] == np.float32(0.04)
     assert table.provenance["read_from_format_version"] == 1
     assert read_table(path, ["m3_major_mm3"]).columns == ["m3_major_mm3"]
+
+
+def test_chunks_are_sized_from_the_row_count(tmp_path):
+    """HDF5 allocates whole chunks: a 3 000-row table in 65 536-row chunks took 8.8 MB for 0.4 MB of values."""
+    from trackfit.io.table import DEFAULT_CHUNK_ROWS, chunk_rows_for
+
+    cols = _columns(3000, seed=4)
+    data_bytes = sum(np.asarray(v).nbytes for v in cols.values())  # numpy's own count of the values
+    path = tmp_path / "small.h5"
+    with TableWriter(path, expected_rows=3000) as writer:
+        writer.append({k: v[:1000] for k, v in cols.items()})
+        writer.append({k: v[1000:] for k, v in cols.items()})
+    with h5py.File(path) as f:
+        assert {f["events"][name].chunks for name in cols} == {(3000,)}
+    assert path.stat().st_size < data_bytes + 20_000  # the values plus HDF5's headers and attributes
+    write_table(tmp_path / "whole.h5", cols)
+    with h5py.File(tmp_path / "whole.h5") as f:
+        assert f["events/status"].chunks == (3000,) and f["events/status"].compression is None
+    # large tables keep 65 536-row chunks; a writer that does not know the size uses small ones
+    assert chunk_rows_for(10 * DEFAULT_CHUNK_ROWS) == DEFAULT_CHUNK_ROWS
+    with TableWriter(tmp_path / "unknown.h5") as writer:
+        writer.append(cols)
+    with h5py.File(tmp_path / "unknown.h5") as f:
+        assert f["events/status"].chunks == (chunk_rows_for(None),)

@@ -34,6 +34,7 @@ __all__ = [
     "FORMAT_VERSION",
     "COLUMN_DOCS",
     "V1_COLUMN_NAMES",
+    "chunk_rows_for",
 ]
 
 FORMAT_NAME = "event-table"
@@ -48,7 +49,10 @@ V1_COLUMN_NAMES = {
     "mom2_trans": "m2_minor_mm2",
     "mom3_long": "m3_major_mm3",
 }
+#: rows per chunk of a column: the largest chunk (256 kB of float32), and the chunk of a writer that is not told how
+#: many rows are coming (a small table then wastes at most 16 kB of float32 per column)
 DEFAULT_CHUNK_ROWS = 65_536
+UNKNOWN_SIZE_CHUNK_ROWS = 4_096
 #: provenance strings longer than this are stored as scalar string datasets instead of attributes
 #: (HDF5 attributes are limited to 64 KiB)
 _LONG_TEXT = 4096
@@ -322,6 +326,22 @@ def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
                             f"(got {type(value).__name__}); store structures as TOML or JSON text")
 
 
+def chunk_rows_for(n_rows: int | None) -> int:
+    """Rows per chunk for a table of ``n_rows`` rows: the whole table up to :data:`DEFAULT_CHUNK_ROWS` rows, then
+    chunks of that size; :data:`UNKNOWN_SIZE_CHUNK_ROWS` when the size is not known in advance.
+
+    HDF5 allocates whole chunks, so a fixed 65 536-row chunk made a 3 000-row table 18 times larger than its data.
+
+    Examples
+    --------
+    >>> chunk_rows_for(3000), chunk_rows_for(10**6), chunk_rows_for(0), chunk_rows_for(None)
+    (3000, 65536, 1, 4096)
+    """
+    if n_rows is None:
+        return UNKNOWN_SIZE_CHUNK_ROWS
+    return max(1, min(int(n_rows), DEFAULT_CHUNK_ROWS))
+
+
 class TableWriter(PartialFileWriter):
     """Write an event-table file (format version 2) by appending column batches.
 
@@ -332,9 +352,13 @@ class TableWriter(PartialFileWriter):
     provenance : dict, optional
         Entries of the ``/provenance`` group (more can be added with :meth:`set_provenance` before closing).
     compression : str
-        A name from :mod:`trackfit.io.compression` (default ``"lzf"``).
-    chunk_rows : int
-        Chunk length of every column dataset.
+        A name from :mod:`trackfit.io.compression` (default ``"none"``: uncompressed, like raw files; ``"lzf"``
+        makes reconstructed tables about a third smaller, see ``docs/table-format.md``).
+    expected_rows : int, optional
+        How many rows will be appended (e.g. the events of the input file): sizes the chunks
+        (:func:`chunk_rows_for`), so a small table takes little more space than its data.
+    chunk_rows : int, optional
+        Chunk length of every column dataset (default: from ``expected_rows``).
     descriptions : dict, optional
         ``name -> (unit, description)`` for columns not in :data:`COLUMN_DOCS`.
     overwrite : bool
@@ -350,9 +374,12 @@ class TableWriter(PartialFileWriter):
     format_version = FORMAT_VERSION
 
     def __init__(self, path, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
-                 chunk_rows: int = DEFAULT_CHUNK_ROWS, descriptions=None, overwrite: bool = False):
+                 expected_rows: int | None = None, chunk_rows: int | None = None, descriptions=None,
+                 overwrite: bool = False):
         from .. import __version__
 
+        if chunk_rows is None:
+            chunk_rows = chunk_rows_for(expected_rows)
         if int(chunk_rows) < 1:
             raise ValueError(f"'chunk_rows' must be >= 1 (got {chunk_rows})")
         self.compression = compression
@@ -444,7 +471,7 @@ class TableWriter(PartialFileWriter):
 
 
 def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
-                overwrite: bool = False, chunk_rows: int = DEFAULT_CHUNK_ROWS) -> Path:
+                overwrite: bool = False, chunk_rows: int | None = None) -> Path:
     """Write an :class:`EventTable` (or any mapping of equal-length 1-D arrays) to a new table file.
 
     Parameters
@@ -454,8 +481,10 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
     provenance : dict, optional
         Merged over ``table.provenance`` when ``table`` is an :class:`EventTable`.
     compression : str
+        Default ``"none"`` (see :class:`TableWriter`).
     overwrite : bool
-    chunk_rows : int
+    chunk_rows : int, optional
+        Default: from the number of rows (:func:`chunk_rows_for`).
 
     Returns
     -------
@@ -463,9 +492,11 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
     """
     merged = dict(getattr(table, "provenance", {}) or {})
     merged.update(provenance or {})
-    with TableWriter(path, provenance=merged, compression=compression, overwrite=overwrite,
-                     chunk_rows=max(1, min(int(chunk_rows), max(len(next(iter(table.values()), [])), 1)))
-                     ) as writer:
+    n_rows = len(next(iter(table.values()), []))
+    if chunk_rows is not None:
+        chunk_rows = max(1, min(int(chunk_rows), max(n_rows, 1)))
+    with TableWriter(path, provenance=merged, compression=compression, overwrite=overwrite, expected_rows=n_rows,
+                     chunk_rows=chunk_rows) as writer:
         writer.append(table)
         if writer._columns is None:  # empty mapping: still a valid (column-less) table
             writer._file["events"].attrs["column_order"] = np.array([], dtype=h5py.string_dtype())

@@ -261,7 +261,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
     overwrite : bool
         Replace an existing ``out_path``.
     compression : str
-        Filter of the table columns.
+        Filter of the table columns (default "none"; see ``docs/table-format.md``).
     with_truth : bool
         Copy the ``/truth`` columns of a simulated raw file into the table as ``truth_<name>`` (default True).
 
@@ -297,7 +297,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
         try:
             writer = TableWriter(out_path, provenance=provenance, compression=compression, overwrite=overwrite,
-                                 chunk_rows=65_536)
+                                 expected_rows=len(reader))
         except BaseException:
             close_bar()
             raise
