@@ -39,10 +39,12 @@ RUNS = {
     ),
 }
 ZERO_SUPPRESSION_ELECTRONS = 150.0
+#: the detector design of every run (written to the files' /run attribute 'design')
+PRESET = "hedme-1atm-1cm"
 
 
 def config_for(source_changes: dict, description: str):
-    base = load_preset("hedme-1atm-1cm")
+    base = load_preset(PRESET)
     return dataclasses.replace(
         base,
         description=f"sample data: {description}",
@@ -60,7 +62,7 @@ def main(argv=None):
     total = 0
     for name, (n_events, seed, changes, description) in RUNS.items():
         config = config_for(changes, description)
-        result = run(config, max(1, round(n_events * args.scale)), rng=seed)
+        result = run(config, max(1, round(n_events * args.scale)), rng=seed, design=PRESET)
         path = result.write(args.out / name, overwrite=True, compression="gzip")
         size = path.stat().st_size
         total += size

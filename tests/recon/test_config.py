@@ -23,6 +23,8 @@ def test_defaults_and_toml_round_trip(tmp_path):
     assert "[recon]" in path.read_text()
     # top-level keys are accepted too, and missing keys take their defaults
     assert ReconConfig.from_toml("threshold_adc = 7\n") == ReconConfig(threshold_adc=7)
+    # counts_per_kev unset (from the raw file) is left out of the TOML, which has no null
+    assert config.counts_per_kev is None and "counts_per_kev =" not in config.to_toml()
 
 
 def test_frozen_and_replace():

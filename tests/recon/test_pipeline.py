@@ -152,3 +152,35 @@ def test_progress_bar_counts_every_event(raw_file, tmp_path, capsys):
     reconstruct_file(path, tmp_path / "out.h5", batch_size=700, progress=True)
     err = capsys.readouterr().err
     assert "3.00k/3.00k" in err or "3000/3000" in err
+
+
+def test_energy_scale_comes_from_settings_raw_file_or_nowhere(tmp_path):
+    batch = toy_tracks(200, 3, roi_shape=(20, 20))
+    plain = reconstruct(batch)
+    assert plain.provenance["energy_scale_source"] == "none"
+    assert plain.provenance["energy_scale_counts_per_kev"] == 3333.3
+    from_run = reconstruct(batch, run_info={"nominal_counts_per_kev": 1000.0})
+    assert from_run.provenance["energy_scale_source"] == "raw file"
+    ok = np.isfinite(from_run["energy_kev"]) & (plain["pulse_height"] > 0)
+    # energy = pulse height / scale, the definition in docs/table-format.md
+    assert np.allclose(from_run["energy_kev"][ok], plain["pulse_height"][ok] / 1000.0, rtol=1e-6)
+    settings = reconstruct(batch, ReconConfig(counts_per_kev=500.0), run_info={"nominal_counts_per_kev": 1000.0})
+    assert settings.provenance["energy_scale_source"] == "settings"
+    assert np.allclose(settings["energy_kev"][ok], 2 * from_run["energy_kev"][ok], rtol=1e-6)
+    # the file's attribute reaches reconstruct_file; a bad one is an error naming the file and the attribute
+    path = tmp_path / "run.h5"
+    with RawEventWriter(path, batch.grid, run_info={"nominal_counts_per_kev": 1000.0}) as writer:
+        writer.append(batch)
+    table = read_table(reconstruct_file(path, tmp_path / "t.h5", progress=False))
+    assert table.provenance["energy_scale_source"] == "raw file"
+    assert np.array_equal(table["energy_kev"], from_run["energy_kev"], equal_nan=True)
+    # 200 rows in chunks of 200 rows: the values (numpy's count) plus about 4 kB of HDF5 header and attributes per
+    # column, far below one 65 536-row chunk per column
+    n_columns = len(table.columns)
+    assert (tmp_path / "t.h5").stat().st_size < sum(table[c].nbytes for c in table) + 5_000 * n_columns
+    bad = tmp_path / "bad.h5"
+    with RawEventWriter(bad, batch.grid, run_info={"nominal_counts_per_kev": -1.0}) as writer:
+        writer.append(batch)
+    with pytest.raises(ValueError, match="bad.h5', /run attribute 'nominal_counts_per_kev'"):
+        reconstruct_file(bad, tmp_path / "u.h5", progress=False)
+    assert not (tmp_path / "u.h5").exists()

@@ -26,6 +26,7 @@ def test_preset_with_flags_and_seed_is_reproducible(tmp_path, capsys):
         energies = reader.read_truth(["photon_energy_kev"])["photon_energy_kev"]
     assert config.source.line_energies_kev == (3.7,)
     assert config.source.polarization_degree == 1.0 and config.source.polarization_angle_deg == 45.0
+    assert reader.run_info["design"] == "hedme-1atm-1cm"
     assert np.all(energies == np.float32(3.7))
 
 
@@ -37,6 +38,9 @@ def test_config_file(tmp_path):
         assert len(reader) == 40
         assert SimConfig.from_toml(reader.run_info["config_toml"]) == config
         assert reader.run_info["seed"] == -1
+        assert reader.run_info["design"] == "cell.toml"
+        # gain 2000 * 1000 / W 23.9 eV / 25 electrons per ADC count (the preset file's design values)
+        assert reader.run_info["nominal_counts_per_kev"] == 2000 * 1000 / 23.9 / 25
 
 
 def test_errors_are_one_line(tmp_path, capsys):

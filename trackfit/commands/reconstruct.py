@@ -87,7 +87,19 @@ def _summary(out) -> str:
     ok = int(np.count_nonzero(status == 0))
     malformed = table.provenance.get("n_malformed_events", 0)
     share = f"{100.0 * ok / n:.1f} %" if n else "-"
-    return f"wrote {out}: {n} events, {ok} fully reconstructed ({share}), {malformed} malformed"
+    return (f"wrote {out}: {n} events, {ok} fully reconstructed ({share}), {malformed} malformed; "
+            f"{_scale_note(table.provenance)}")
+
+
+def _scale_note(provenance) -> str:
+    from ..io.energy_label import SCALE_KEY, energy_scale_source
+
+    source = energy_scale_source(provenance)
+    value = provenance.get(SCALE_KEY)
+    if source == "none":
+        return ("energy_kev UNCALIBRATED (no counts_per_kev in the settings or the raw file; calibrate with "
+                "trackfit calibrate, or set counts_per_kev in --config)")
+    return f"energy scale {value:.6g} ADC counts per keV from the {source}"
 
 
 def run(args) -> int:

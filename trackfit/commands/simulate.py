@@ -51,8 +51,9 @@ def _main(args: argparse.Namespace) -> int:
         raise CommandError(f"'{args.output}' exists; pass --overwrite to replace it")
     from tqdm import tqdm
 
+    design = args.preset if args.preset else Path(args.config).name
     with tqdm(total=args.n_events, unit="ev", desc="simulate", disable=args.no_progress) as bar:
-        result = run(config, args.n_events, rng=args.seed, progress=bar.update)
+        result = run(config, args.n_events, rng=args.seed, progress=bar.update, design=design)
     path = result.write(args.output, overwrite=args.overwrite)
     print(f"wrote {len(result.batch)} events to {path} ({result.n_converted} photons converted, "
           f"{result.n_not_triggered} did not trigger; detection efficiency {result.detection_efficiency:.4f})")

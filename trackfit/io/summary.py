@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .energy_label import RUN_DESIGN, counts_per_kev_from_run
 from .raw import DEFAULT_BATCH_SIZE, open_raw
 
 __all__ = ["RawSummary", "summarize_raw"]
@@ -58,6 +59,7 @@ class RawSummary:
             f"ROI pixels    quantiles ({q}): {_fmt(self.roi_pixels_quantiles)}",
             f"pulse height  sum of ROI signal, ADC counts, quantiles ({q}): {_fmt(self.pulse_height_quantiles)}",
             f"peak pixel    largest pixel value {self.peak_adc_max} ADC counts",
+            f"energy scale  {self._energy_scale_text()}",
             f"truth         {', '.join(self.truth_names) if self.truth_names else 'none (measured data)'}",
         ]
         width = max((len(key) for key in self.run_info), default=0)
@@ -78,6 +80,19 @@ class RawSummary:
         else:
             lines.append("layout        every scanned event is well formed")
         return "\n".join(lines)
+
+
+    def _energy_scale_text(self) -> str:
+        try:
+            nominal = counts_per_kev_from_run(self.run_info)
+        except ValueError as err:
+            return f"unusable: {err}"
+        if nominal is None:
+            return ("none in the file: reconstructed energies are uncalibrated unless the settings give "
+                    "counts_per_kev")
+        design = self.run_info.get(RUN_DESIGN)
+        return (f"{nominal:.6g} ADC counts per keV, the nominal scale of the design"
+                + (f" '{design}'" if design else "") + " (used unless the settings give counts_per_kev)")
 
 
 def _quantiles(values) -> list:

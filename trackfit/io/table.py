@@ -23,6 +23,7 @@ import numpy as np
 
 from ._partial import PartialFileWriter
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+from .energy_label import describe_energy_scale, energy_is_calibrated, energy_scale_source
 
 __all__ = [
     "EventTable",
@@ -244,12 +245,10 @@ class EventTable(Mapping):
         return frame
 
     # ------------------------------------------------------------------ display
-    def _stats(self):
+    def _column_stats(self):
+        """Per column: (name, dtype, min, max, mean, number of NaN); None where undefined."""
         rows = []
         for name, arr in self._data.items():
-            if len(arr) == 0:
-                rows.append((name, str(arr.dtype), "", "", "", ""))
-                continue
             if arr.dtype.kind == "f":
                 finite = np.isfinite(arr)
                 n_nan = int(len(arr) - finite.sum())
@@ -257,11 +256,18 @@ class EventTable(Mapping):
             else:
                 n_nan, vals = 0, arr
             if len(vals):
-                lo, hi, mean = vals.min(), vals.max(), vals.astype(np.float64).mean()
-                rows.append((name, str(arr.dtype), f"{lo:.6g}", f"{hi:.6g}", f"{mean:.6g}", str(n_nan)))
+                rows.append((name, str(arr.dtype), _python_scalar(vals.min()), _python_scalar(vals.max()),
+                             float(vals.astype(np.float64).mean()), n_nan))
             else:
-                rows.append((name, str(arr.dtype), "", "", "", str(n_nan)))
+                rows.append((name, str(arr.dtype), None, None, None, n_nan if len(arr) else None))
         return rows
+
+    def _stats(self):
+        def text(value):
+            return "" if value is None else f"{value:.6g}"
+
+        return [(name, dtype, text(lo), text(hi), text(mean), "" if n_nan is None else str(n_nan))
+                for name, dtype, lo, hi, mean, n_nan in self._column_stats()]
 
     def _status_line(self):
         if "status" not in self._data or not self._n:
@@ -269,15 +275,27 @@ class EventTable(Mapping):
         ok = int(np.count_nonzero(self._data["status"] == 0))
         return f"status == 0 (fully reconstructed): {ok} of {self._n} ({100.0 * ok / self._n:.1f} %)"
 
+    def _energy_line(self):
+        if "energy_kev" not in self._data or energy_scale_source(self._provenance) is None:
+            return None
+        return describe_energy_scale(self._provenance)
+
     def summary(self) -> str:
-        """A text table of every column: dtype, min, max, mean and number of NaN."""
+        """A text table of every column: dtype, min, max, mean and number of NaN (with the status and energy-scale
+        lines above it; uncalibrated energies are marked in the table too)."""
         head = ("column", "dtype", "min", "max", "mean", "NaN")
-        rows = [head, *self._stats()]
+        stats = self._stats()
+        if not energy_is_calibrated(self._provenance):
+            stats = [(f"{r[0]} (uncalibrated)" if r[0] == "energy_kev" else r[0], *r[1:]) for r in stats]
+        rows = [head, *stats]
         widths = [max(len(r[k]) for r in rows) for k in range(len(head))]
         lines = [f"EventTable: {self._n} rows, {len(self._data)} columns"]
         status = self._status_line()
         if status:
             lines.append(status)
+        energy = self._energy_line()
+        if energy:
+            lines.append(energy)
         source = self._provenance.get("input_name")
         if source:
             lines.append(f"from: {source}")
@@ -286,14 +304,26 @@ class EventTable(Mapping):
                                    for k, (v, w) in enumerate(zip(r, widths, strict=True))))
         return "\n".join(lines)
 
+    def summary_dict(self) -> dict:
+        """What :meth:`summary` prints, as plain data (for JSON): row count, status and energy-scale lines, and per
+        column its dtype, min, max, mean and number of NaN (None where undefined)."""
+
+        columns = {name: {"dtype": dtype, "min": lo, "max": hi, "mean": mean, "n_nan": n_nan}
+                   for name, dtype, lo, hi, mean, n_nan in self._column_stats()}
+        return {"n_rows": self._n, "n_columns": len(self._data), "status": self._status_line(),
+                "energy_scale": self._energy_line(), "input_name": self._provenance.get("input_name"),
+                "columns": columns}
+
     def __repr__(self):
         cols = ", ".join(self.columns[:8]) + (", ..." if len(self._data) > 8 else "")
         return f"EventTable({self._n} rows; columns: {cols})"
 
     def _repr_html_(self):
         status = self._status_line()
+        energy = self._energy_line()
         parts = [f"<p><b>EventTable</b>: {self._n} rows, {len(self._data)} columns"
-                 + (f"<br>{html.escape(status)}" if status else "") + "</p>",
+                 + (f"<br>{html.escape(status)}" if status else "")
+                 + (f"<br>{html.escape(energy)}" if energy else "") + "</p>",
                  "<table><thead><tr>"
                  + "".join(f"<th>{h}</th>" for h in ("column", "dtype", "min", "max", "mean", "NaN"))
                  + "</tr></thead><tbody>"]

@@ -111,7 +111,7 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
     x, y = grid.pixel_centre_mm(cc + c0, rr + r0)
     total = q.sum()
     bx, by = (q @ x) / total, (q @ y) / total
-    out.update(pulse_height=float(total), energy_kev=float(total / config.counts_per_kev), centroid_x_mm=bx,
+    out.update(pulse_height=float(total), energy_kev=float(total / config.energy_scale()[0]), centroid_x_mm=bx,
                centroid_y_mm=by, conv_x_mm=bx, conv_y_mm=by)
     if n == 1:
         out.update(m2_major_mm2=0.0, m2_minor_mm2=0.0, status=int(status | Status.SINGLE_PIXEL))

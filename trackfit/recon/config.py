@@ -20,9 +20,14 @@ import numpy as np
 
 from .._toml import dumps
 
-__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS"]
+__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV"]
 
 SECOND_PASS_CENTRES = ("conversion_point", "weighted_centroid")
+
+#: ADC counts per keV used when neither the settings nor the raw file give a scale: the nominal value of the
+#: He/DME design of the simulator presets (gas gain 2000, W = 24 eV, 25 electrons per ADC count), so that such
+#: energies are of the right order for that design; tables made with it are marked uncalibrated
+UNCALIBRATED_COUNTS_PER_KEV = 3333.3
 
 #: setting names of trackfit 0.1 -> their current names; files using an old name are refused with the new one
 RENAMED_SETTINGS = {
@@ -59,10 +64,13 @@ class ReconConfig:
         memory of the published method; about one pixel pitch).
     second_pass_centre : {"conversion_point", "weighted_centroid"}
         Point about which the weighted second moments are taken. Default ``"conversion_point"``.
-    counts_per_kev : float
-        Gain: ``energy_kev = pulse_height / counts_per_kev``. Default 3333.3 ADC counts per keV: the simulator's
-        design values (gas gain 2000, W = 24 eV per electron, 25 electrons per ADC count: 2000 * 1000 / 24 / 25).
-        Replace it by a calibration (e.g. from an Fe-55 line) for measured data.
+    counts_per_kev : float or None
+        Gain: ``energy_kev = pulse_height / counts_per_kev`` (ADC counts per keV, > 0). Default None: taken from
+        the raw file's ``/run`` attribute ``nominal_counts_per_kev`` (the simulator writes its design's value,
+        gas gain x 1000 / W / electrons per ADC count); a file without one (measured data) is reconstructed with
+        the placeholder :data:`UNCALIBRATED_COUNTS_PER_KEV` and its table is marked uncalibrated. The table
+        provenance records the value used and its source (``docs/table-format.md``). Set it, or apply a
+        calibration (e.g. from an Fe-55 line), for energies in keV of measured data.
     saturation_adc : int
         Pixels at or above this signal set the ``SATURATED`` bit. Default 32767, the largest int16 value; lower it
         to your chip's ADC range minus the pedestal.
@@ -83,7 +91,7 @@ class ReconConfig:
     start_search_outer_rms: float = 3.5
     second_pass_length_mm: float = 0.05
     second_pass_centre: str = "conversion_point"
-    counts_per_kev: float = 3333.3
+    counts_per_kev: float | None = None
     saturation_adc: int = 32767
     bad_pixels: tuple = ()
 
@@ -116,7 +124,7 @@ class ReconConfig:
         if self.second_pass_centre not in SECOND_PASS_CENTRES:
             raise ValueError(f"'second_pass_centre' must be one of {SECOND_PASS_CENTRES} "
                              f"(got {self.second_pass_centre!r})")
-        if number("counts_per_kev", self.counts_per_kev) <= 0:
+        if self.counts_per_kev is not None and number("counts_per_kev", self.counts_per_kev) <= 0:
             raise ValueError(f"'counts_per_kev' must be > 0 (got {self.counts_per_kev})")
         number("saturation_adc", self.saturation_adc, integer=True)
         object.__setattr__(self, "bad_pixels", self._normalise_bad_pixels(self.bad_pixels))
@@ -143,6 +151,45 @@ class ReconConfig:
         return tuple((int(c), int(r)) for c, r in pairs[order])
 
     # ------------------------------------------------------------------ derived
+    def energy_scale(self, run_info=None, *, path=None) -> tuple[float, str]:
+        """The ADC counts per keV to use for a run, and where they come from.
+
+        Parameters
+        ----------
+        run_info : mapping, optional
+            The ``/run`` attributes of the raw file (``reader.run_info``).
+        path : str or Path, optional
+            The raw file, named in errors.
+
+        Returns
+        -------
+        (float, str)
+            The scale and its source: ``"settings"`` (:attr:`counts_per_kev` is set), ``"raw file"`` (its
+            ``nominal_counts_per_kev``) or ``"none"`` (:data:`UNCALIBRATED_COUNTS_PER_KEV`, energies uncalibrated).
+
+        Raises
+        ------
+        ValueError
+            The raw file's attribute is not a positive number.
+
+        Examples
+        --------
+        >>> ReconConfig().energy_scale({"nominal_counts_per_kev": 2400.0})
+        (2400.0, 'raw file')
+        >>> ReconConfig(counts_per_kev=2500).energy_scale({"nominal_counts_per_kev": 2400.0})
+        (2500.0, 'settings')
+        >>> ReconConfig().energy_scale({})
+        (3333.3, 'none')
+        """
+        if self.counts_per_kev is not None:
+            return self.counts_per_kev, "settings"
+        from ..io.energy_label import counts_per_kev_from_run
+
+        nominal = counts_per_kev_from_run(run_info or {}, path=path)
+        if nominal is not None:
+            return nominal, "raw file"
+        return UNCALIBRATED_COUNTS_PER_KEV, "none"
+
     def bad_pixel_map(self, grid) -> np.ndarray:
         """Chip-sized uint8 map, row by row (1 = bad), for ``grid``; empty when there are no bad pixels.
 

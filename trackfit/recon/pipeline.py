@@ -22,6 +22,7 @@ from ..events import EventBatch
 from ..hexgrid import HexGrid
 from ..io._partial import now_utc
 from ..io.compression import DEFAULT_COMPRESSION
+from ..io.energy_label import SCALE_KEY, SOURCE_KEY
 from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range
 from .config import ReconConfig
@@ -68,11 +69,12 @@ def _as_config(config) -> ReconConfig:
 
 
 class _Prepared:
-    """Kernel arguments derived once from a config and a chip."""
+    """Kernel arguments derived once from a config, a chip and the energy scale of the run."""
 
-    def __init__(self, config: ReconConfig, grid: HexGrid):
+    def __init__(self, config: ReconConfig, grid: HexGrid, counts_per_kev: float | None = None):
         self.config = config
         self.grid = grid
+        self.counts_per_kev = float(config.energy_scale()[0] if counts_per_kev is None else counts_per_kev)
         self.mask = config.bad_pixel_map(grid)
         parity = 1 if grid.shifted_rows == "odd" else 0
         unshifted_row = 1 - parity  # a row that is not shifted: its column 0 sits at x = -x0
@@ -82,7 +84,7 @@ class _Prepared:
             self.mask, grid.n_columns, grid.pitch_mm, grid.row_pitch_mm, -float(x_first), -float(y_first), parity,
             int(np.floor(config.threshold_adc)), config.min_pixels, config.start_search_inner_rms,
             config.start_search_outer_rms,
-            config.second_pass_length_mm, config.second_pass_centre == "conversion_point", config.counts_per_kev,
+            config.second_pass_length_mm, config.second_pass_centre == "conversion_point", self.counts_per_kev,
             config.saturation_adc,
         )
 
@@ -119,13 +121,15 @@ def _columns(batch: EventBatch, out_f, out_i) -> dict[str, np.ndarray]:
     return columns
 
 
-def _base_provenance(config: ReconConfig, grid: HexGrid) -> dict:
+def _base_provenance(config: ReconConfig, grid: HexGrid, scale: tuple[float, str]) -> dict:
     from .. import __version__
 
     return {
         "trackfit_version": __version__,
         "created_utc": now_utc(),
         "config_toml": config.to_toml(),
+        SCALE_KEY: float(scale[0]),
+        SOURCE_KEY: scale[1],
         "grid_pitch_mm": grid.pitch_mm,
         "grid_n_columns": grid.n_columns,
         "grid_n_rows": grid.n_rows,
@@ -133,7 +137,7 @@ def _base_provenance(config: ReconConfig, grid: HexGrid) -> dict:
     }
 
 
-def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTable:
+def reconstruct(batch: EventBatch, config=None, *, threads: int = 1, run_info=None) -> EventTable:
     """Reconstruct every event of a batch: cleaning, two-stage moment analysis, energy.
 
     Parameters
@@ -143,13 +147,17 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTab
         Default ``ReconConfig()``.
     threads : int
         Threads running the kernel on parts of the batch (default 1).
+    run_info : mapping, optional
+        The ``/run`` attributes of the raw file the batch comes from (``reader.run_info``): its
+        ``nominal_counts_per_kev`` gives the energy scale when the config sets no ``counts_per_kev``
+        (:meth:`ReconConfig.energy_scale`). Without either, the energies are marked uncalibrated.
 
     Returns
     -------
     EventTable
         One row per event, in batch order, columns :data:`TABLE_COLUMNS` (see ``docs/table-format.md``) followed
         by ``truth_<name>`` copies of the batch's simulation truth, if any; the provenance holds the config TOML,
-        the library version and the chip geometry.
+        the energy scale used and its source, the library version and the chip geometry.
 
     References
     ----------
@@ -169,13 +177,14 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1) -> EventTab
                         "wrap your arrays with EventBatch(...) or EventBatch.from_images(...)")
     config = _as_config(config)
     threads = max(1, int(threads))
-    prepared = _Prepared(config, batch.grid)
+    scale = config.energy_scale(run_info)
+    prepared = _Prepared(config, batch.grid, scale[0])
     if threads > 1:
         with ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") as pool:
             out_f, out_i = prepared.run(batch, threads, pool)
     else:
         out_f, out_i = prepared.run(batch)
-    return EventTable(_columns(batch, out_f, out_i), _base_provenance(config, batch.grid))
+    return EventTable(_columns(batch, out_f, out_i), _base_provenance(config, batch.grid, scale))
 
 
 class _Fingerprint:
@@ -284,8 +293,9 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         raise ValueError(f"output '{out_path}' would overwrite the input file")
 
     with open_raw(raw_path, strict=strict) as reader:
-        prepared = _Prepared(config, reader.grid)
-        provenance = _base_provenance(config, reader.grid)
+        scale = config.energy_scale(reader.run_info, path=raw_path)
+        prepared = _Prepared(config, reader.grid, scale[0])
+        provenance = _base_provenance(config, reader.grid, scale)
         stat = raw_path.stat()
         provenance.update({
             "input_name": raw_path.name,

@@ -505,6 +505,13 @@ class SimConfig:
         """The chip of the readout."""
         return self.readout.grid
 
+    @property
+    def nominal_counts_per_kev(self) -> float:
+        """ADC counts per keV of deposited energy that the design gives on average: gas gain x 1000 / W (eV) /
+        electrons per ADC count (pixel gain maps and gain drift average to 1; charge below the reconstruction
+        threshold makes the measured scale a little lower)."""
+        return self.multiplier.gain * 1000.0 / self.gas.w_value_ev / self.readout.electrons_per_adc
+
 
 # ---------------------------------------------------------------------- presets
 def _preset_files() -> dict:

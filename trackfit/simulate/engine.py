@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from ..events import EventBatch
+from ..io.energy_label import RUN_COUNTS_PER_KEV, RUN_DESIGN
 from ..io.raw import RawEventWriter
 from . import _kernels
 from .config import SimConfig
@@ -73,6 +74,8 @@ class SimResult:
         The per-pixel relative gain map used (None: uniform).
     diffusion_um_per_sqrt_cm : float
         Transverse diffusion coefficient used (from the drift field and the gas, or set by hand).
+    design : str
+        Name of the detector design (a preset name, a config file name; empty when unknown).
     """
 
     batch: EventBatch
@@ -84,6 +87,7 @@ class SimResult:
     converted_rate_hz: float
     pixel_gain: np.ndarray | None = field(default=None, repr=False)
     diffusion_um_per_sqrt_cm: float = float("nan")
+    design: str = ""
 
     @property
     def truth(self) -> dict:
@@ -108,6 +112,8 @@ class SimResult:
             "fluorescence_fates": ",".join(FLUORESCENCE_FATES),
             "diffusion_um_per_sqrt_cm": float(self.diffusion_um_per_sqrt_cm),
             "description": self.config.description,
+            RUN_DESIGN: self.design,
+            RUN_COUNTS_PER_KEV: float(self.config.nominal_counts_per_kev),
         }
 
     def write(self, path, *, overwrite: bool = False, compression: str = "none", created_utc: str | None = None):
@@ -244,7 +250,7 @@ def _as_generator(rng):
     raise TypeError(f"'rng' must be a seed (int), a numpy.random.Generator or None (got {type(rng).__name__})")
 
 
-def run(config: SimConfig, n_events: int, rng=None, *, progress=None) -> SimResult:
+def run(config: SimConfig, n_events: int, rng=None, *, progress=None, design: str = "") -> SimResult:
     """Simulate until ``n_events`` events have triggered.
 
     Parameters
@@ -256,6 +262,8 @@ def run(config: SimConfig, n_events: int, rng=None, *, progress=None) -> SimResu
         A seed (recorded in the result and the file) or a generator.
     progress : callable, optional
         Called as ``progress(n_new_events)`` after every chunk (e.g. ``tqdm.update``).
+    design : str
+        Name of the design (e.g. the preset name), written with the events to the ``/run`` attributes.
 
     Returns
     -------
@@ -300,4 +308,4 @@ def run(config: SimConfig, n_events: int, rng=None, *, progress=None) -> SimResu
     return SimResult(batch=result, config=config, seed=seed, n_converted=n_converted,
                      n_not_triggered=n_converted - len(result), detection_efficiency=sim.photons.efficiency,
                      converted_rate_hz=sim.photons.converted_rate_hz, pixel_gain=sim.pixel_gain,
-                     diffusion_um_per_sqrt_cm=sim.diffusion_um_per_sqrt_cm)
+                     diffusion_um_per_sqrt_cm=sim.diffusion_um_per_sqrt_cm, design=str(design))
