@@ -5,6 +5,7 @@ notebook's first code cell holds its parameters, so a user can point it at their
 (tests/test_notebooks.py) overrides them to run on sample_data/ into a temporary folder.
 """
 
+import hashlib
 from pathlib import Path
 
 import nbformat
@@ -13,13 +14,17 @@ from nbformat.v4 import new_code_cell, new_markdown_cell, new_notebook
 HERE = Path(__file__).resolve().parent
 
 
-def notebook(cells):
+def notebook(cells, name=""):
+    """A notebook of the cells; cell ids are derived from the notebook name and the cell position, so rebuilding
+    an unchanged notebook gives an identical file."""
     nb = new_notebook()
     nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
     nb.metadata["language_info"] = {"name": "python"}
-    for kind, source in cells:
+    for k, (kind, source) in enumerate(cells):
         source = source.strip("\n")
-        nb.cells.append(new_markdown_cell(source) if kind == "md" else new_code_cell(source))
+        cell = new_markdown_cell(source) if kind == "md" else new_code_cell(source)
+        cell.id = hashlib.sha1(f"{name}:{k}".encode()).hexdigest()[:8]
+        nb.cells.append(cell)
     return nb
 
 
@@ -48,23 +53,32 @@ import numpy as np
 
 import trackfit
 from trackfit.io.summary import summarize_raw
+from trackfit.io.energy_label import energy_axis_label
 from trackfit.plotting import draw_event_gallery
 from trackfit.recon import STATUS_DOCS, ReconConfig, Status, status_counts
+from trackfit.recon.clusters import event_clusters
 
 output = Path(OUTPUT_DIR)
 output.mkdir(parents=True, exist_ok=True)
 config = ReconConfig.read_toml(SETTINGS) if SETTINGS else ReconConfig()
 print(summarize_raw(RAW_FILE, max_events=N_EVENTS).as_text())
 """),
-    ("md", "## A gallery of events with the reconstruction on top"),
+    ("md", """
+## A gallery of events with the reconstruction on top
+
+One colour scale for all panels; hatched pixels are above the threshold but outside the main cluster, the only
+one the reconstruction uses. Energies are labelled uncalibrated when neither the settings nor the raw file give
+the ADC counts per keV.
+"""),
     ("code", """
 reader = trackfit.open_raw(RAW_FILE)
 n = len(reader) if N_EVENTS is None else min(N_EVENTS, len(reader))
 batch = reader.read_batch(0, n, with_truth=False)
-table = trackfit.reconstruct(batch, config)
-shown = range(min(N_GALLERY, len(batch)))
-fig = draw_event_gallery([batch.event(i) for i in shown], [table.row(i) for i in shown],
-                         threshold_adc=config.threshold_adc)
+table = trackfit.reconstruct(batch, config, run_info=reader.run_info)
+shown = [batch.event(i) for i in range(min(N_GALLERY, len(batch)))]
+fig = draw_event_gallery(shown, [table.row(i) for i in range(len(shown))], threshold_adc=config.threshold_adc,
+                         outside_main=[event_clusters(e, config).outside_main for e in shown],
+                         provenance=table.provenance)
 fig.savefig(output / "gallery.png", dpi=90)
 """),
     ("md", "## The event table"),
@@ -75,8 +89,8 @@ table
 ok = table["status"] == 0
 elongation = table["m2_major_mm2"][ok] / np.maximum(table["m2_minor_mm2"][ok], 1e-12)
 fig, axes = plt.subplots(1, 3, figsize=(13, 3.6), layout="constrained")
-axes[0].hist(table["pulse_height"][ok], bins=120, histtype="step")
-axes[0].set_xlabel("pulse height [ADC counts]")
+axes[0].hist(table["energy_kev"][ok], bins=120, histtype="step")
+axes[0].set_xlabel(energy_axis_label(table.provenance))
 axes[0].set_ylabel("events")
 axes[1].hist(table["n_pixels"][ok], bins=60, histtype="step")
 axes[1].set_xlabel("pixels in the main cluster")
@@ -265,7 +279,7 @@ calibration.gain_map
 """),
     ("md", "## Modulation factor versus energy"),
     ("code", """
-figures.plot_modulation_factor(calibration.modulation_factor)
+figures.plot_modulation_factor(calibration.modulation_factor, calibrated=calibration.energy_scale is not None)
 for label, point in report.modulation_points:
     print(f"{label}: mu = {point.value:.4f} +- {point.error:.4f} at {point.energy_kev:.3f} keV "
           f"({point.n_events} events)")
@@ -308,7 +322,7 @@ NOTEBOOKS = {"01_first_look.ipynb": FIRST_LOOK, "02_cut_tuning.ipynb": CUT_TUNIN
 
 def main():
     for name, cells in NOTEBOOKS.items():
-        nbformat.write(notebook(cells), HERE / name)
+        nbformat.write(notebook(cells, name), HERE / name)
         print(f"wrote {HERE / name}")
 
 

@@ -82,3 +82,16 @@ def test_calibration_report(tmp_path):
     for check in summary["checks"].values():
         assert abs(check["degree"] - check["true_degree"]) < 3 * check["degree_err"]
         assert abs(check["angle_deg"] - check["true_angle_deg"]) < 5.0
+
+
+def test_notebooks_are_what_the_build_script_writes():
+    """The committed notebooks are what notebooks/_build.py writes (deterministic cell ids): edit the script."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("_build", NOTEBOOKS / "_build.py")
+    build = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(build)
+    for name, cells in build.NOTEBOOKS.items():
+        expected = nbformat.writes(build.notebook(cells, name))
+        assert (NOTEBOOKS / name).read_text() == expected + "\n", \
+            f"{name} differs from what notebooks/_build.py writes: run python notebooks/_build.py"

@@ -1,6 +1,7 @@
 """Event displays: one event as filled hexagons, with the reconstruction drawn on top.
 
-Matplotlib is imported when a function is called, not when trackfit is imported.
+Matplotlib is imported when a function is called, not when trackfit is imported. Energies in titles are labelled
+with :func:`trackfit.io.energy_label.format_energy` (uncalibrated energies say so).
 """
 
 from __future__ import annotations
@@ -10,11 +11,15 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 
 from .events import Event
+from .io.energy_label import format_energy
 
 __all__ = ["draw_event", "draw_event_gallery"]
 
 #: colours of the overlay, chosen to read on the perceptually uniform ``cividis`` map
-_OVERLAY = {"centroid": "#d62728", "conversion": "#ff7f0e", "axis": "black", "emission": "#e377c2"}
+_OVERLAY = {"centroid": "#d62728", "conversion": "#ff7f0e", "axis": "black", "emission": "#e377c2",
+            "outside": "#d62728"}
+#: legend label of the pixels above threshold that are not in the main cluster
+OUTSIDE_LABEL = "above threshold, outside the main cluster"
 
 
 def _scalar(result, key, default=np.nan):
@@ -23,7 +28,8 @@ def _scalar(result, key, default=np.nan):
 
 
 def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | None = None, cmap: str = "cividis",
-               colorbar: bool = True, title: bool = True):
+               colorbar: bool = True, title: bool = True, outside_main=None, provenance=None,
+               vmax: float | None = None, legend: bool = True):
     """Draw one event as filled hexagonal pixels on chip coordinates (mm).
 
     Parameters
@@ -42,6 +48,17 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     cmap : str
         Colour map of the pulse heights (default ``cividis``, perceptually uniform).
     colorbar, title : bool
+        The title names the event, its ROI pixel count and, with ``result``, the main cluster's pixel count
+        (``n_pixels``) and energy.
+    outside_main : array of bool, optional
+        Per ROI pixel, True for pixels above threshold outside the main cluster
+        (:func:`trackfit.recon.clusters.event_clusters`): drawn hatched, with a legend entry.
+    provenance : mapping, optional
+        Provenance of the table ``result`` comes from: labels the energy uncalibrated when its scale is unknown.
+    vmax : float, optional
+        Top of the colour scale (default: the event's largest pixel value).
+    legend : bool
+        Draw the legend inside the axes (a gallery draws one for all panels instead).
 
     Returns
     -------
@@ -56,13 +73,20 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     values = event.signal.astype(np.float64)
     shown = np.ones(values.shape, bool) if threshold_adc is None else values > threshold_adc
     vertices = grid.hexagon_vertices_mm(event.x_mm, event.y_mm)
-    vmax = max(float(values.max(initial=0.0)), 1.0)
+    vmax = max(float(values.max(initial=0.0)), 1.0) if vmax is None else float(vmax)
     filled = PolyCollection(vertices[shown], array=np.clip(values[shown], 0, None), cmap=cmap,
                             edgecolors="face", linewidths=0.3)
     filled.set_clim(0.0, vmax)
     ax.add_collection(filled)
     if (~shown).any():
         ax.add_collection(PolyCollection(vertices[~shown], facecolors="none", edgecolors="0.85", linewidths=0.3))
+    if outside_main is not None:
+        outside = np.asarray(outside_main, dtype=bool)
+        if outside.shape != values.shape:
+            raise ValueError(f"'outside_main' must have one entry per ROI pixel ({values.shape}), got {outside.shape}")
+        if outside.any():
+            ax.add_collection(PolyCollection(vertices[outside], facecolors="none", edgecolors=_OVERLAY["outside"],
+                                             hatch="////", linewidths=0.6, label=OUTSIDE_LABEL))
     pad = grid.pitch_mm
     if len(values):
         ax.set_xlim(event.x_mm.min() - pad, event.x_mm.max() + pad)
@@ -73,10 +97,31 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     if colorbar:
         ax.figure.colorbar(filled, ax=ax, label="pulse height [ADC counts]", shrink=0.85)
     if title:
-        ax.set_title(f"event {event.index} (trigger {event.trigger_id}), {len(values)} pixels", fontsize="medium")
+        ax.set_title(_title(event, result, provenance), fontsize="medium")
     if result is not None:
         _draw_overlay(ax, result)
+    if legend:
+        _legend(ax)
     return ax
+
+
+def _title(event, result, provenance) -> str:
+    text = f"event {event.index} (trigger {event.trigger_id}): {len(event.signal)} ROI pixels"
+    if result is None:
+        return text
+    n_main = result.get("n_pixels") if isinstance(result, Mapping) else getattr(result, "n_pixels", None)
+    if n_main is not None:
+        text += f", {int(n_main)} in the main cluster"
+    energy = _scalar(result, "energy_kev")
+    if np.isfinite(energy):
+        text += f"\nmain cluster energy {format_energy(energy, provenance)}"
+    return text
+
+
+def _legend(ax):
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        ax.legend(handles, labels, loc="best", fontsize="x-small", framealpha=0.7)
 
 
 def _draw_overlay(ax, result):
@@ -97,13 +142,30 @@ def _draw_overlay(ax, result):
             ax.annotate("", xy=(cx + length * np.cos(emission), cy + length * np.sin(emission)), xytext=(cx, cy),
                         arrowprops=dict(arrowstyle="-|>", color=_OVERLAY["emission"], lw=1.8))
             ax.plot([], [], color=_OVERLAY["emission"], lw=1.8, label="emission direction")
-    if ax.get_legend_handles_labels()[0]:
-        ax.legend(loc="best", fontsize="x-small", framealpha=0.7)
 
 
 def draw_event_gallery(events: Sequence[Event], results: Sequence | None = None, *, ncols: int = 4,
-                       threshold_adc: float | None = None, size_in: float = 3.2):
+                       threshold_adc: float | None = None, size_in: float = 3.2, outside_main=None,
+                       provenance=None):
     """Draw several events side by side (one panel each), with optional reconstruction overlays.
+
+    The panels share one colour scale, shown by one colour bar, and one legend below the panels, so that nothing
+    covers a track.
+
+    Parameters
+    ----------
+    events : sequence of Event
+    results : sequence of mappings, optional
+        One reconstruction per event (e.g. ``table.row(i)``), or None for pixels only.
+    ncols : int
+    threshold_adc : float, optional
+        Pixels at or below it are drawn as outlines.
+    size_in : float
+        Panel size, inches.
+    outside_main : sequence of bool arrays, optional
+        Per event, the pixels outside the main cluster (see :func:`draw_event`).
+    provenance : mapping, optional
+        Provenance of the table the results come from (energy labels).
 
     Returns
     -------
@@ -116,19 +178,32 @@ def draw_event_gallery(events: Sequence[Event], results: Sequence | None = None,
         raise ValueError("no events to draw")
     if results is not None and len(results) != len(events):
         raise ValueError(f"got {len(events)} events but {len(results)} results")
+    if outside_main is not None and len(outside_main) != len(events):
+        raise ValueError(f"got {len(events)} events but {len(outside_main)} outside_main masks")
     ncols = max(1, min(ncols, len(events)))
     nrows = -(-len(events) // ncols)
-    fig, axes = plt.subplots(nrows, ncols, figsize=(size_in * ncols, size_in * nrows), layout="constrained",
-                             squeeze=False)
+    fig, axes = plt.subplots(nrows, ncols, figsize=(size_in * ncols + 0.8, size_in * nrows + 0.5),
+                             layout="constrained", squeeze=False)
+    vmax = max(max(float(e.signal.max(initial=0)) for e in events), 1.0)
+    handles, labels = [], []
     for k, ax in enumerate(axes.flat):
         if k >= len(events):
             ax.set_axis_off()
             continue
-        draw_event(events[k], ax=ax, result=None if results is None else results[k], threshold_adc=threshold_adc,
-                   colorbar=False, title=False)
-        ax.set_title(f"event {events[k].index}", fontsize="small")
-        if k:
-            legend = ax.get_legend()
-            if legend is not None:
-                legend.remove()
+        result = None if results is None else results[k]
+        draw_event(events[k], ax=ax, result=result, threshold_adc=threshold_adc, colorbar=False, title=False,
+                   outside_main=None if outside_main is None else outside_main[k], vmax=vmax, legend=False)
+        title = f"event {events[k].index}"
+        energy = np.nan if result is None else _scalar(result, "energy_kev")
+        if np.isfinite(energy):
+            title += f", {format_energy(energy, provenance, digits=3)}"
+        ax.set_title(title, fontsize="small")
+        for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
+            if label not in labels:
+                handles.append(handle)
+                labels.append(label)
+    fig.colorbar(axes.flat[0].collections[0], ax=axes, label="pulse height [ADC counts]", shrink=0.8)
+    if handles:
+        fig.legend(handles, labels, loc="outside lower center", ncols=min(len(handles), 3), fontsize="small",
+                   frameon=False)
     return fig

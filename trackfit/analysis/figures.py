@@ -16,6 +16,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..io.energy_label import energy_axis_label
+
 __all__ = ["plot_spectrum_fit", "plot_gain_map", "plot_gain_drift", "plot_modulation_curve", "plot_stokes_plane",
            "plot_modulation_factor", "plot_spurious_map", "save_figure"]
 
@@ -133,8 +135,12 @@ def plot_stokes_plane(result, *, ax=None):
     return fig
 
 
-def plot_modulation_factor(curve, *, ax=None):
-    """Measured modulation factors with errors and the fitted curve."""
+def plot_modulation_factor(curve, *, ax=None, provenance=None, calibrated: bool = False):
+    """Measured modulation factors with errors and the fitted curve.
+
+    ``provenance`` (of the polarized runs' event tables) and ``calibrated`` (their energies came from a
+    calibration's energy scale) choose the energy-axis label (:func:`trackfit.io.energy_label.energy_axis_label`).
+    """
     fig, ax = _axes(ax)
     ax.errorbar(curve.points_energy_kev, curve.points_value, yerr=curve.points_error, fmt="s", ms=4, color="0.2",
                 label="measured")
@@ -142,7 +148,7 @@ def plot_modulation_factor(curve, *, ax=None):
     span = max(hi - lo, 0.5)
     fine = np.linspace(max(lo - 0.2 * span, 0.1), hi + 0.2 * span, 300)
     ax.plot(fine, curve(fine), color="tab:green", lw=1.4, label="curve (clamped outside the points)")
-    ax.set_xlabel("energy [keV]")
+    ax.set_xlabel(energy_axis_label(provenance, calibrated=calibrated))
     ax.set_ylabel("modulation factor")
     ax.set_ylim(0, min(1.0, 1.25 * max(max(curve.points_value), 0.1)))
     ax.legend(fontsize=8, frameon=False)

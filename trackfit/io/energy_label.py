@@ -34,7 +34,7 @@ from collections.abc import Mapping
 
 __all__ = ["RUN_COUNTS_PER_KEV", "RUN_DESIGN", "SCALE_KEY", "SOURCE_KEY", "ENERGY_SCALE_SOURCES",
            "counts_per_kev_from_run", "energy_scale_source", "energy_is_calibrated", "energy_axis_label",
-           "describe_energy_scale"]
+           "format_energy", "describe_energy_scale"]
 
 #: optional ``/run`` attribute of a raw file: nominal ADC counts per keV of the detector design
 RUN_COUNTS_PER_KEV = "nominal_counts_per_kev"
@@ -112,6 +112,19 @@ def energy_axis_label(provenance: Mapping | None = None, *, calibrated: bool = F
     if calibrated or energy_is_calibrated(provenance):
         return label
     return f"{label} (uncalibrated)"
+
+
+def format_energy(value_kev: float, provenance: Mapping | None = None, *, calibrated: bool = False,
+                  digits: int = 4) -> str:
+    """One energy as text for titles and printouts: ``"5.873 keV"``, or ``"5.873 keV (uncalibrated)"``.
+
+    Examples
+    --------
+    >>> format_energy(5.8731, {"energy_scale_source": "none"})
+    '5.873 keV (uncalibrated)'
+    """
+    text = f"{value_kev:.{digits}g} keV"
+    return text if calibrated or energy_is_calibrated(provenance) else f"{text} (uncalibrated)"
 
 
 def describe_energy_scale(provenance: Mapping | None) -> str:
