@@ -2,13 +2,26 @@
 
 Each subcommand lives in its own module of :mod:`trackfit.commands` and exposes ``register(subparsers)``;
 handlers parse arguments and call the library, nothing more. ``trackfit --version`` imports nothing heavy.
+
+Conventions every subcommand follows:
+
+* ``--help`` shows the default of every option: the parsers use :class:`HelpFormatter`, which adds
+  ``(default: X)`` to an option's help unless the help already states its default in its own words.
+* Errors name what the user typed: a flag (``--bins``), never the Python parameter behind it (``n_bins``). Commands
+  check flag values before calling the library where the library's name would be ambiguous, and wrap library
+  calls in :func:`flags_for_parameters`, which rewrites a quoted parameter name in a ``ValueError`` into its flag.
+* Bad input never shows a traceback: handlers raise :class:`CommandError` (or a builtin error that :func:`main`
+  reports as one line on stderr, exit status 2).
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
+import re
 import sys
+from collections.abc import Mapping
 
 #: subcommand modules, in the order ``trackfit --help`` lists them
 COMMAND_MODULES = ("info", "show", "simulate", "reconstruct", "calibrate", "polarization")
@@ -16,6 +29,63 @@ COMMAND_MODULES = ("info", "show", "simulate", "reconstruct", "calibrate", "pola
 
 class CommandError(Exception):
     """An error the command line reports as one line on stderr with exit status 2 (no traceback)."""
+
+
+class HelpFormatter(argparse.HelpFormatter):
+    """Adds ``(default: X)`` to the help of every option, unless the help already states its default (or that the
+    option is required) in its own words; options without a value say ``(default: none)``. Switches
+    (``store_true``) and positional arguments are left as they are."""
+
+    def _get_help_string(self, action):
+        text = action.help or ""
+        default = action.default
+        if (action.nargs == 0 or not action.option_strings or action.required or default is argparse.SUPPRESS
+                or "%(default)" in text or re.search(r"\b(default|required)\b", text)):
+            return text
+        if default is None or default == []:
+            shown = "none"
+        else:
+            shown = " ".join(str(v) for v in default) if isinstance(default, list | tuple) else "%(default)s"
+        return f"{text} (default: {shown})" if text else f"default: {shown}"
+
+
+class ArgumentParser(argparse.ArgumentParser):
+    """The parser of ``trackfit`` and of each subcommand: :class:`HelpFormatter` unless another is given."""
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("formatter_class", HelpFormatter)
+        super().__init__(*args, **kwargs)
+
+
+def translate_parameters(message: str, flags: Mapping[str, str]) -> str:
+    """Replace each quoted Python parameter name of ``flags`` in ``message`` (``'n_bins'``) by its flag (``--bins``).
+
+    Examples
+    --------
+    >>> translate_parameters("'n_bins' must be a positive multiple of 12 (got 10)", {"n_bins": "--bins"})
+    '--bins must be a positive multiple of 12 (got 10)'
+    """
+    for name, flag in flags.items():
+        message = re.sub(rf"(['\"]){re.escape(name)}\1", flag, message)
+    return message
+
+
+@contextlib.contextmanager
+def flags_for_parameters(flags: Mapping[str, str]):
+    """Inside the block, a ``ValueError`` whose message quotes a parameter of ``flags`` becomes a
+    :class:`CommandError` that names the flag instead; other errors pass unchanged.
+
+    Use it around a library call whose keyword arguments come from flags with other names, e.g.
+    ``with flags_for_parameters({"n_bins": "--bins"}): measure_polarization(..., n_bins=args.bins)``.
+    """
+    try:
+        yield
+    except ValueError as err:
+        text = str(err)
+        translated = translate_parameters(text, flags)
+        if translated == text:
+            raise
+        raise CommandError(translated) from None
 
 
 def _version() -> str:
@@ -28,13 +98,13 @@ def _version() -> str:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = ArgumentParser(
         prog="trackfit",
         description="Reconstruct, simulate and analyse events of a photoelectric X-ray polarimeter "
         "with a hexagonal-pixel readout.",
     )
     parser.add_argument("--version", action="version", version=f"trackfit {_version()}")
-    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=ArgumentParser)
     for name in COMMAND_MODULES:
         importlib.import_module(f"trackfit.commands.{name}").register(subparsers)
     return parser

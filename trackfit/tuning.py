@@ -320,7 +320,7 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
     if progress:
         from tqdm.auto import tqdm
 
-        iterator = tqdm(recon_points, desc="sweep", unit="setting")
+        iterator = tqdm(recon_points, desc="sweep", unit=" settings")
     for recon_point in iterator:
         params = dict(zip(recon_names, recon_point, strict=True))
         config = replace(base_config, **params)

@@ -50,7 +50,7 @@ def test_errors_are_one_line(tmp_path, capsys):
     assert main(["simulate", "--preset", "nope", "-n", "5", "-o", out]) == 2
     assert "known presets" in capsys.readouterr().err
     assert main(["simulate", "--preset", "hedme-1atm-1cm", "-o", out]) == 2
-    assert "-n N" in capsys.readouterr().err
+    assert "-n/--n-events N is required" in capsys.readouterr().err
     bad = tmp_path / "bad.toml"
     bad.write_text("[gas]\nfractionz = [1.0]\n")
     assert main(["simulate", str(bad), "-n", "5", "-o", out]) == 2

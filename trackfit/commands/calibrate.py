@@ -11,8 +11,12 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-from ..cli import CommandError
+from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, parse_run_spec, selection_from_args
+
+#: library parameters of build_calibration -> the flags that set them (errors name the flag)
+PARAMETER_FLAGS = {"min_counts": "--gain-min-counts", "energy_edges_kev": "--spurious-energy-edges",
+                   "polarization_degree": "degree=P of --polarized"}
 
 
 def register(subparsers):
@@ -32,16 +36,17 @@ def register(subparsers):
                         help="polarized run for the modulation factor (degree default 1; give the beam angle "
                         "in the detector frame when known) (repeatable)")
     parser.add_argument("--update", metavar="CAL", help="start from an existing calibration file (parts made now "
-                        "replace its parts)")
+                        "replace its parts; default: a new calibration)")
     parser.add_argument("--quadratic", action="store_true", help="quadratic energy scale (needs 3 lines)")
     parser.add_argument("--gain-drift", action="store_true",
                         help="also fit gain versus time on the (single) flat-field run")
-    parser.add_argument("--gain-cell-mm", type=float, default=1.0, help="gain-map cell size (default 1 mm)")
-    parser.add_argument("--gain-min-counts", type=int, default=300,
+    parser.add_argument("--gain-cell-mm", type=float, default=1.0, metavar="MM",
+                        help="gain-map cell size (default 1 mm)")
+    parser.add_argument("--gain-min-counts", type=int, default=300, metavar="N",
                         help="minimum events in a fitted gain-map cell (default 300)")
-    parser.add_argument("--spurious-cell-mm", type=float, default=2.0,
+    parser.add_argument("--spurious-cell-mm", type=float, default=2.0, metavar="MM",
                         help="spurious-map cell size (default 2 mm)")
-    parser.add_argument("--spurious-min-counts", type=int, default=100,
+    parser.add_argument("--spurious-min-counts", type=int, default=100, metavar="N",
                         help="minimum events in a spurious-map cell (default 100)")
     parser.add_argument("--spurious-energy-edges", nargs="+", type=float, metavar="E_KEV",
                         help="pool the unpolarized runs into these energy bins, one map node each "
@@ -50,7 +55,7 @@ def register(subparsers):
                         help="region covered by the maps (default: range of the flat-field positions)")
     parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
                         help="per-event weights for the spurious map and modulation factor (default none)")
-    parser.add_argument("--figures", metavar="DIR", help="write figures of every fit as PNG")
+    parser.add_argument("--figures", metavar="DIR", help="write figures of every fit as PNG (default: no figures)")
     parser.add_argument("--overwrite", action="store_true", help="replace an existing output file")
     add_cut_options(parser, what="unpolarized and polarized events (after calibration; default: status == 0)")
     add_cut_options(parser, prefix="flat-", what="flat-field and line events (default: status == 0)")
@@ -72,12 +77,28 @@ def _selection_or_default(args, prefix=""):
     return StatusCut() if isinstance(selection, Everything) else selection
 
 
+def _check_flags(args) -> None:
+    """Values the library would report under its own parameter names (shared by the gain and spurious maps)."""
+    for flag, value in (("--gain-cell-mm", args.gain_cell_mm), ("--spurious-cell-mm", args.spurious_cell_mm)):
+        if not value > 0:
+            raise CommandError(f"{flag} must be > 0 (got {value:g})")
+    for flag, value in (("--gain-min-counts", args.gain_min_counts),
+                        ("--spurious-min-counts", args.spurious_min_counts)):
+        if value < 1:
+            raise CommandError(f"{flag} must be >= 1 (got {value})")
+    if args.extent_mm is not None:
+        x0, x1, y0, y1 = args.extent_mm
+        if not (x1 > x0 and y1 > y0):
+            raise CommandError(f"--extent-mm X0 X1 Y0 Y1 needs X1 > X0 and Y1 > Y0 (got {x0:g} {x1:g} {y0:g} {y1:g})")
+
+
 def run(args) -> int:
     from ..analysis import Calibration
     from ..analysis.calibrate import CalibrationRun, build_calibration
 
     if not (args.flat_field or args.line or args.unpolarized or args.polarized):
         raise CommandError("nothing to calibrate: give --flat-field, --line, --unpolarized and/or --polarized")
+    _check_flags(args)
     output = Path(args.output)
     if output.exists() and not args.overwrite:
         raise FileExistsError(f"'{output}' exists; pass --overwrite to replace it")
@@ -87,6 +108,8 @@ def run(args) -> int:
         path, opts = parse_run_spec(spec, ("energy_kev",))
         if "energy_kev" not in opts:
             raise CommandError(f"--line '{spec}' needs energy_kev=E")
+        if not opts["energy_kev"] > 0:
+            raise CommandError(f"--line '{spec}': energy_kev must be > 0 keV (got {opts['energy_kev']:g})")
         lines.append(CalibrationRun(table=_read(path), label=Path(path).name, energy_kev=opts["energy_kev"]))
     unpolarized = [CalibrationRun(table=_read(p), label=Path(p).name) for p in args.unpolarized]
     polarized = []
@@ -97,18 +120,19 @@ def run(args) -> int:
                                         polarization_degree=opts.get("degree", 1.0),
                                         polarization_angle_rad=None if angle is None else math.radians(angle)))
     base = Calibration.load(args.update) if args.update else None
-    calibration, report = build_calibration(
-        flat_field=flat, lines=lines, unpolarized=unpolarized, polarized=polarized,
-        selection=_selection_or_default(args), flat_selection=_selection_or_default(args, "flat-"),
-        weighting=args.weights, gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts,
-        gain_drift=args.gain_drift, quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
-        spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
-        extent_mm=args.extent_mm, base=base)
+    with flags_for_parameters(PARAMETER_FLAGS):
+        calibration, report = build_calibration(
+            flat_field=flat, lines=lines, unpolarized=unpolarized, polarized=polarized,
+            selection=_selection_or_default(args), flat_selection=_selection_or_default(args, "flat-"),
+            weighting=args.weights, gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts,
+            gain_drift=args.gain_drift, quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
+            spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
+            extent_mm=args.extent_mm, base=base)
     calibration.save(output, overwrite=args.overwrite)
     _print_report(calibration, report)
     print(f"wrote {output}")
     if args.figures:
-        _figures(calibration, report, Path(args.figures))
+        _figures(calibration, report, Path(args.figures), polarized)
     return 0
 
 
@@ -127,7 +151,7 @@ def _print_report(calibration, report):
     print(calibration)
 
 
-def _figures(calibration, report, out: Path):
+def _figures(calibration, report, out: Path, polarized=()):
     from ..analysis import figures
 
     out.mkdir(parents=True, exist_ok=True)
@@ -140,7 +164,9 @@ def _figures(calibration, report, out: Path):
     if calibration.gain_drift is not None:
         figures.save_figure(figures.plot_gain_drift(calibration.gain_drift), out / "gain_drift.png")
     if calibration.modulation_factor is not None:
-        figures.save_figure(figures.plot_modulation_factor(calibration.modulation_factor),
+        provenance = getattr(polarized[0].table, "provenance", None) if polarized else None
+        figures.save_figure(figures.plot_modulation_factor(calibration.modulation_factor, provenance=provenance,
+                                                           calibrated=calibration.energy_scale is not None),
                             out / "modulation_factor.png")
     if calibration.spurious_modulation is not None:
         for k, energy in enumerate(calibration.spurious_modulation.energy_kev):

@@ -1,25 +1,124 @@
-"""``trackfit info FILE``: what a raw event file holds (geometry, events, time span, ROI sizes, pulse heights)."""
+"""``trackfit info FILE``: what a trackfit file holds.
+
+Dispatches on the file's root attribute ``trackfit_format``: a raw event file (geometry, events, time span, ROI
+sizes, pulse heights, energy scale, layout check), an event table (:meth:`EventTable.summary`: rows, status,
+energy scale, per-column statistics, provenance) or a calibration file (the calibration's own summary: each part
+with its runs). ``--json`` prints the same as JSON for each kind.
+"""
 
 from __future__ import annotations
 
 import json
+from pathlib import Path
+
+from ..cli import CommandError
+
+#: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
+KINDS = ("raw-events", "event-table", "calibration")
 
 
 def register(subparsers):
     parser = subparsers.add_parser(
-        "info", help="summarise a raw event file",
-        description="Print the geometry, event count, time span, ROI-size and pulse-height summaries of a raw "
-        "event file, and check every event's layout.")
-    parser.add_argument("file", help="raw event file (HDF5, trackfit raw-events format)")
+        "info", help="summarise a raw event file, an event table or a calibration file",
+        description="Print what a trackfit file holds. Raw event files: geometry, event count, time span, "
+        "ROI-size and pulse-height summaries, energy scale, and a check of every event's layout. Event tables: "
+        "rows, status, energy scale (uncalibrated energies are marked), per-column min/max/mean/NaN and where "
+        "the table comes from. Calibration files: each part with its summary and input runs.")
+    parser.add_argument("file", help="a trackfit HDF5 file (raw events, event table or calibration)")
     parser.add_argument("--max-events", type=int, default=None, metavar="N",
-                        help="scan only the first N events for the summaries (default: all)")
+                        help="summarise only the first N events (rows of a table) (default: all)")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
     parser.set_defaults(func=run)
 
 
-def run(args) -> int:
-    from ..io.summary import summarize_raw
+def file_kind(path) -> str:
+    """The ``trackfit_format`` root attribute of a file; errors name the file and say what was expected."""
+    import h5py
 
-    summary = summarize_raw(args.file, max_events=args.max_events)
-    print(json.dumps(summary.as_dict(), indent=2) if args.json else summary.as_text())
+    path = Path(path)
+    if not path.exists():
+        raise FileNotFoundError(f"file '{path}' does not exist")
+    try:
+        f = h5py.File(path, "r")
+    except OSError as err:
+        raise CommandError(f"'{path}' is not a readable HDF5 file ({err})") from None
+    with f:
+        kind = f.attrs.get("trackfit_format")
+    kind = kind.decode() if isinstance(kind, bytes) else kind
+    if kind not in KINDS:
+        found = "no trackfit_format attribute" if kind is None else f"trackfit_format {kind!r}"
+        raise CommandError(f"'{path}' is not a trackfit file this version knows: expected a root attribute "
+                           f"trackfit_format of {list(KINDS)}, found {found}")
+    return kind
+
+
+def run(args) -> int:
+    if args.max_events is not None and args.max_events < 1:
+        raise CommandError(f"--max-events must be >= 1 (got {args.max_events})")
+    kind = file_kind(args.file)
+    if kind == "raw-events":
+        from ..io.summary import summarize_raw
+
+        summary = summarize_raw(args.file, max_events=args.max_events)
+        print(json.dumps(summary.as_dict(), indent=2) if args.json else summary.as_text())
+    elif kind == "event-table":
+        _table(args)
+    else:
+        _calibration(args)
     return 0
+
+
+def _header(path) -> dict:
+    import h5py
+
+    with h5py.File(path, "r") as f:
+        return {k: (v.decode() if isinstance(v, bytes) else v.item() if hasattr(v, "item") else v)
+                for k, v in f.attrs.items()}
+
+
+def _file_lines(path, header) -> list[str]:
+    size = Path(path).stat().st_size
+    return [f"file          {path} ({size / 1e6:.2f} MB)",
+            f"format        {header.get('trackfit_format')} v{header.get('format_version')}, written by "
+            f"{header.get('created_by')} at {header.get('created_utc')}"]
+
+
+def _short(value) -> str:
+    text = str(value)
+    if "\n" in text:
+        return f"({len(text.splitlines())} lines of text)"
+    return text if len(text) <= 70 else text[:66] + " ..."
+
+
+def _table(args) -> None:
+    from ..io.table import read_table
+
+    table = read_table(args.file, stop=args.max_events)
+    header = _header(args.file)
+    provenance = table.provenance
+    if args.json:
+        print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
+                          "header": header, "n_rows_read": len(table), "summary": table.summary_dict(),
+                          "provenance": provenance}, indent=2, default=str))
+        return
+    lines = _file_lines(args.file, header)
+    if args.max_events is not None:
+        lines.append(f"rows          the first {len(table)} rows (--max-events)")
+    lines.append(table.summary())
+    width = max((len(key) for key in provenance), default=0)
+    lines += [f"provenance    {key:<{width}} = {_short(value)}" for key, value in provenance.items()]
+    print("\n".join(lines))
+
+
+def _calibration(args) -> None:
+    from ..analysis import Calibration
+
+    calibration = Calibration.load(args.file)
+    header = _header(args.file)
+    if args.json:
+        parts = {name: {"summary": repr(getattr(calibration, name)),
+                        "provenance": calibration.provenance.get(name, {})} for name in calibration.parts()}
+        print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
+                          "header": header, "parts": parts}, indent=2, default=str))
+        return
+    print("\n".join([*_file_lines(args.file, header), repr(calibration)]))

@@ -10,8 +10,12 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from ..cli import CommandError
+from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, selection_from_args
+
+#: library parameters of measure_polarization -> the flags that set them (errors name the flag)
+PARAMETER_FLAGS = {"n_bins": "--bins", "confidence_level": "--confidence", "energy_bands_kev": "--bands",
+                   "background_scale": "--background-scale"}
 
 
 def register(subparsers):
@@ -23,26 +27,30 @@ def register(subparsers):
         "background subtracted.")
     parser.add_argument("table", metavar="TABLE", help="event table of the run (trackfit reconstruct output)")
     parser.add_argument("-c", "--calibration", metavar="CAL",
-                        help="calibration file (trackfit calibrate output)")
+                        help="calibration file (trackfit calibrate output; default: none, then give "
+                        "--modulation-factor)")
     parser.add_argument("--modulation-factor", type=float, metavar="MU",
-                        help="one modulation factor for all events (instead of the calibration's curve)")
+                        help="one modulation factor for all events, in (0, 1] (default: the calibration's curve)")
     parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
                         help="per-event weights; the calibration must have been made with the same (default none)")
     parser.add_argument("--bands", nargs="+", type=float, metavar="E_KEV",
-                        help="energy band edges in keV for a per-band table")
-    parser.add_argument("--bins", type=int, default=36, help="bins of the modulation curve (multiple of 12)")
-    parser.add_argument("--confidence", type=float, default=0.6827,
+                        help="energy band edges in keV for a per-band table (default: no per-band table)")
+    parser.add_argument("--bins", type=int, default=36, metavar="N",
+                        help="bins of the modulation curve (multiple of 12)")
+    parser.add_argument("--confidence", type=float, default=0.6827, metavar="CL",
                         help="confidence level of the interval of the degree (default 0.6827)")
     parser.add_argument("--use-gain-drift", action="store_true",
                         help="apply the calibration's gain-versus-time part (only for the run it was made on)")
-    parser.add_argument("--json", metavar="OUT", help="write the result as JSON")
-    parser.add_argument("--figures", metavar="DIR", help="write the modulation curve and Q/U plane as PNG")
+    parser.add_argument("--json", metavar="OUT", help="write the result as JSON (default: printed only)")
+    parser.add_argument("--figures", metavar="DIR",
+                        help="write the modulation curve and Q/U plane as PNG (default: no figures)")
     add_cut_options(parser, what="source events")
     bkg = parser.add_argument_group("background")
     bkg.add_argument("--background-table", metavar="TABLE",
                      help="table of the off-source events (default: the same run)")
     bkg.add_argument("--background-scale", type=float, metavar="R",
-                     help="(area x time on) / (area x time off); required with a background")
+                     help="(area x time on) / (area x time off), >= 0; required with a background (default: "
+                     "no background subtracted)")
     add_cut_options(parser, prefix="bkg-", what="off-source events")
     parser.set_defaults(func=run)
 
@@ -58,18 +66,28 @@ def run(args) -> int:
 
     if not Path(args.table).exists():
         raise FileNotFoundError(f"event table '{args.table}' does not exist")
+    if args.background_scale is not None and not args.background_scale >= 0:
+        raise CommandError(f"--background-scale must be >= 0 (got {args.background_scale:g})")
+    if args.modulation_factor is not None and not 0 < args.modulation_factor <= 1:
+        raise CommandError(f"--modulation-factor must be in (0, 1] (got {args.modulation_factor:g})")
     calibration = Calibration.load(args.calibration) if args.calibration else None
+    if args.modulation_factor is None and getattr(calibration, "modulation_factor", None) is None:
+        where = (f"the calibration file '{args.calibration}' has no modulation-factor curve" if calibration
+                 else "no calibration file was given")
+        raise CommandError(f"measuring polarization needs a modulation factor, and {where}: give -c CAL made "
+                           "with --polarized runs, or --modulation-factor MU")
     selection = selection_from_args(args)
     background_selection = selection_from_args(args, prefix="bkg-") if _has_background_cuts(args) else None
     background_table = read_table(args.background_table) if args.background_table else None
     if (background_selection is not None or background_table is not None) and args.background_scale is None:
         raise CommandError("a background (--bkg-* cuts or --background-table) needs --background-scale")
     table = read_table(args.table)
-    measurement = measure_polarization(
-        table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
-        weighting=args.weights, background_selection=background_selection, background_table=background_table,
-        background_scale=args.background_scale, energy_bands_kev=args.bands, n_bins=args.bins,
-        use_gain_drift=args.use_gain_drift, confidence_level=args.confidence)
+    with flags_for_parameters(PARAMETER_FLAGS):
+        measurement = measure_polarization(
+            table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
+            weighting=args.weights, background_selection=background_selection, background_table=background_table,
+            background_scale=args.background_scale, energy_bands_kev=args.bands, n_bins=args.bins,
+            use_gain_drift=args.use_gain_drift, confidence_level=args.confidence)
     print(f"run: {args.table}" + (f"   calibration: {args.calibration}" if args.calibration else ""))
     print(measurement)
     if args.json:

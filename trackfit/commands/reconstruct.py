@@ -7,10 +7,28 @@ Dask distributed cluster. One progress bar counts the events of all files.
 
 from __future__ import annotations
 
+import argparse
 import os
 from pathlib import Path
 
 from ..cli import CommandError
+
+#: events per batch when --batch-size is not given (trackfit.recon.DEFAULT_BATCH_SIZE, checked by a test; kept
+#: here so that building the parser does not import the reconstruction)
+DEFAULT_BATCH_SIZE = 32_768
+
+
+class _PrintSettings(argparse.Action):
+    """``--print-settings``: print every setting with its default as a commented TOML file and exit."""
+
+    def __init__(self, option_strings, dest, **kwargs):
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        from ..recon import ReconConfig
+
+        print(ReconConfig().settings_template(), end="")
+        parser.exit()
 
 
 def register(subparsers):
@@ -18,20 +36,31 @@ def register(subparsers):
         "reconstruct", help="reconstruct raw event files into event tables",
         description="Clean each event (threshold, bad pixels, main cluster) and run the two-stage moment "
         "analysis: energy, conversion point and emission angle of every event, one table row per input event "
-        "(docs/table-format.md).")
+        "(docs/table-format.md). Energies in keV need the detector's ADC counts per keV: counts_per_kev in "
+        "--config, else the raw file's nominal scale (simulated files); without either the table is marked "
+        "uncalibrated.")
     parser.add_argument("raw", nargs="+", metavar="RAW", help="raw event file(s)")
     out = parser.add_mutually_exclusive_group(required=True)
-    out.add_argument("-o", "--output", metavar="OUT", help="event-table file to write (one RAW only)")
-    out.add_argument("--out-dir", metavar="DIR", help="folder for the tables, named <raw stem>_events.h5")
-    parser.add_argument("--config", metavar="TOML", help="reconstruction settings (trackfit.ReconConfig keys)")
+    out.add_argument("-o", "--output", metavar="OUT",
+                     help="event-table file to write (one RAW only; -o or --out-dir is required)")
+    out.add_argument("--out-dir", metavar="DIR",
+                     help="folder for the tables, named <raw stem>_events.h5 (-o or --out-dir is required)")
+    parser.add_argument("--config", metavar="TOML",
+                        help="reconstruction settings (trackfit.ReconConfig keys; default: the built-in settings, "
+                        "see --print-settings)")
+    parser.add_argument("--print-settings", action=_PrintSettings,
+                        help="print every setting with its default as a commented TOML settings file and exit "
+                        "(save it, edit it, pass it to --config)")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
                         help="files reconstructed in parallel, one process each (default 1)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run one task per file on a Dask distributed cluster: a scheduler address "
-                        "(tcp://host:8786) or 'local'; every worker must see the paths (needs trackfit[dask])")
+                        "(tcp://host:8786) or 'local'; every worker must see the paths (needs trackfit[dask]; "
+                        "default: no cluster, processes on this machine)")
     parser.add_argument("--threads", type=int, default=None, metavar="N",
                         help="kernel threads per file (default: all CPUs with one worker, 1 with several)")
-    parser.add_argument("--batch-size", type=int, default=None, metavar="N", help="events per batch")
+    parser.add_argument("--batch-size", type=int, default=None, metavar="N",
+                        help=f"events per batch; memory grows with it (default {DEFAULT_BATCH_SIZE})")
     parser.add_argument("--strict", action="store_true",
                         help="stop at the first malformed event instead of flagging it")
     parser.add_argument("--overwrite", action="store_true", help="replace existing output files")
@@ -110,6 +139,8 @@ def run(args) -> int:
         raise CommandError(f"--workers must be >= 1 (got {args.workers})")
     if args.batch_size is not None and args.batch_size < 1:
         raise CommandError(f"--batch-size must be >= 1 (got {args.batch_size})")
+    if args.threads is not None and args.threads < 1:
+        raise CommandError(f"--threads must be >= 1 (got {args.threads})")
     config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
     jobs = _jobs(args)
     totals = []
@@ -124,7 +155,7 @@ def run(args) -> int:
 
     from tqdm.auto import tqdm
 
-    bar = tqdm(total=sum(totals), unit="ev", unit_scale=True, disable=args.no_progress, dynamic_ncols=True,
+    bar = tqdm(total=sum(totals), unit=" events", unit_scale=True, disable=args.no_progress, dynamic_ncols=True,
                desc="reconstruct")
     failures = []
     try:

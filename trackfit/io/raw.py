@@ -33,6 +33,12 @@ EVENT_DATASETS = {
     "trigger_id": (np.dtype(np.int64), ()),
 }
 GEOMETRY_ATTRIBUTES = ("pitch_mm", "n_columns", "n_rows", "shifted_rows")
+#: what to tell a user who gives another trackfit file where a raw event file is expected
+_OTHER_KINDS = {
+    "event-table": ": this is an event table, already reconstructed (summarise it with trackfit info, read it with "
+                   "trackfit.read_table)",
+    "calibration": ": this is a calibration file (made by trackfit calibrate), not a raw event file",
+}
 DEFAULT_BATCH_SIZE = 65_536
 
 
@@ -248,8 +254,9 @@ class RawEventReader:
             if key not in attrs:
                 raise self._error(f"missing root attribute '{key}'", dataset="/")
         if attrs["trackfit_format"] != FORMAT_NAME:
+            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
             raise self._error(f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                              f"(got {attrs['trackfit_format']!r})", dataset="/")
+                              f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
         if attrs["format_version"] != FORMAT_VERSION:
             raise self._error(f"unknown format_version {attrs['format_version']!r}; this trackfit reads "
                               f"version {FORMAT_VERSION}", dataset="/")

@@ -534,6 +534,14 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
 
 
 # ---------------------------------------------------------------------- reading
+#: what to tell a user who gives another trackfit file where an event table is expected
+_OTHER_KINDS = {
+    "raw-events": ": this is a raw event file; reconstruct it into an event table first: "
+                  "trackfit reconstruct RAW.h5 -o TABLE.h5 (trackfit.reconstruct_file in Python)",
+    "calibration": ": this is a calibration file (made by trackfit calibrate), not an event table",
+}
+
+
 def _read_provenance(group: h5py.Group) -> dict:
     out = {k: _decode(v) for k, v in group.attrs.items()}
     for key, item in group.items():
@@ -582,8 +590,9 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
             if key not in attrs:
                 raise TableFormatError(path, f"missing root attribute '{key}'", dataset="/")
         if attrs["trackfit_format"] != FORMAT_NAME:
+            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
             raise TableFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                                         f"(got {attrs['trackfit_format']!r})", dataset="/")
+                                         f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
         version = attrs["format_version"]
         if version not in READABLE_VERSIONS:
             raise TableFormatError(path, f"unknown format_version {version!r}; this trackfit reads versions "

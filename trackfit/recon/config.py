@@ -35,6 +35,26 @@ RENAMED_SETTINGS = {
     "r_max": "start_search_outer_rms",
     "weight_scale_mm": "second_pass_length_mm",
 }
+#: one line per setting, written above it by :meth:`ReconConfig.settings_template`
+SETTING_NOTES = {
+    "threshold_adc": "zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts); "
+                     "about 5 times the pixel noise",
+    "min_pixels": "main clusters with fewer pixels get the TOO_FEW_PIXELS status bit (values still computed)",
+    "start_search_inner_rms": "inner radius of the start-point search, in units of the track's rms length "
+                              "sqrt(m2_major_mm2) from the centroid",
+    "start_search_outer_rms": "outer radius of the start-point search, same units",
+    "second_pass_length_mm": "length of the second-pass weights exp(-distance / second_pass_length_mm) from the "
+                             "conversion point (mm)",
+    "second_pass_centre": 'point about which the weighted second moments are taken: "conversion_point" or '
+                          '"weighted_centroid"',
+    "counts_per_kev": "ADC counts per keV: energy_kev = pulse_height / counts_per_kev; when not set, the raw "
+                      "file's /run attribute nominal_counts_per_kev (simulated files), else the energies are "
+                      "marked uncalibrated. For measured data, uncomment the line and set your scale (e.g. Fe-55 "
+                      "K-alpha peak / 5.895 keV)",
+    "saturation_adc": "pixels at or above this signal set the SATURATED status bit (ADC counts)",
+    "bad_pixels": "pixels to ignore (hot or dead), as [column, row] pairs, e.g. [[10, 20], [11, 20]]",
+}
+
 #: values renamed the same way (setting -> {old value: new value})
 RENAMED_VALUES = {"second_pass_centre": {"weighted_barycentre": "weighted_centroid"}}
 
@@ -246,6 +266,40 @@ class ReconConfig:
         except ValueError as err:
             raise ValueError(f"{source}: {err}") from None
 
+    def settings_template(self) -> str:
+        """Every setting with its value and a comment saying what it does, as a TOML settings file.
+
+        ``trackfit reconstruct --print-settings`` prints it for the defaults (``docs/examples/recon.toml`` is that
+        output); settings that are not set (``counts_per_kev``) appear as commented-out lines. Reading the text
+        back gives this config.
+
+        Examples
+        --------
+        >>> text = ReconConfig().settings_template()
+        >>> ReconConfig.from_toml(text) == ReconConfig()
+        True
+        """
+        from .._toml import format_value
+
+        lines = ["# trackfit reconstruction settings (trackfit.ReconConfig): every setting with its default,",
+                 "# as printed by `trackfit reconstruct --print-settings`. Use it with",
+                 "#     trackfit reconstruct RAW.h5 -o TABLE.h5 --config recon.toml",
+                 '#  or trackfit.reconstruct_file("RAW.h5", "TABLE.h5", config="recon.toml")',
+                 "#  or trackfit.ReconConfig.read_toml(\"recon.toml\")",
+                 "# Keep only the lines you change (missing keys take their defaults; unknown keys are refused).",
+                 "# The methods behind each setting: docs/methods.md §2.",
+                 "", "[recon]"]
+        for name in self.field_names():
+            value = getattr(self, name)
+            lines.append("")
+            lines += [f"# {line}" for line in _wrap(SETTING_NOTES[name])]
+            if value is None:
+                example = UNCALIBRATED_COUNTS_PER_KEV if name == "counts_per_kev" else ""
+                lines.append(f"# {name} = {format_value(example)}")
+            else:
+                lines.append(f"{name} = {format_value([list(p) for p in value] if name == 'bad_pixels' else value)}")
+        return "\n".join(lines) + "\n"
+
     def to_toml(self) -> str:
         """The full configuration as TOML text (every key, in a ``[recon]`` table)."""
         return dumps({"recon": self.to_dict()}, header="trackfit reconstruction settings (trackfit.ReconConfig)")
@@ -270,3 +324,9 @@ class ReconConfig:
         path = Path(path)
         path.write_text(self.to_toml())
         return path
+
+
+def _wrap(text: str, width: int = 100) -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(text, width=width)

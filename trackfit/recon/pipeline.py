@@ -238,7 +238,7 @@ def _progress_bar(progress, total, label):
         return (lambda n: None), (lambda: None)
     from tqdm.auto import tqdm
 
-    bar = tqdm(total=total, unit="ev", unit_scale=True, desc=label, dynamic_ncols=True, leave=True)
+    bar = tqdm(total=total, unit=" events", unit_scale=True, desc=label, dynamic_ncols=True, leave=True)
     return bar.update, bar.close
 
 
