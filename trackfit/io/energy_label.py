@@ -11,7 +11,9 @@ source                  meaning
 ``"raw file"``          the raw file's ``/run`` attribute ``nominal_counts_per_kev`` (written by the
                         simulator from its design: gas gain x 1000 / W / electrons per ADC count)
 ``"none"``              neither: a placeholder scale was used and the energies are **uncalibrated**
-``"calibration"``       an energy scale of a calibration file was applied afterwards
+``"calibration"``       an energy scale of a calibration file was applied afterwards (trackfit does not
+                        write it: set it in the provenance of tables you store after ``Calibration.apply``;
+                        in memory, pass ``calibrated=True`` to the label functions)
 ======================  ==============================================================================
 
 Every figure or printout of energies asks :func:`energy_axis_label` for its label, so uncalibrated energies are
