@@ -79,18 +79,18 @@ class MixtureTransport:
 MIXTURE_TRANSPORT = (
     MixtureTransport(
         name="DME", molecules=("C2H6O",), quencher="C2H6O", quencher_fraction=(1.0, 1.0),
-        ratio=1.6, ratio_low=1.0, ratio_high=2.5, max_reduced_field_td=12.0,
+        ratio=1.7, ratio_low=1.0, ratio_high=2.5, max_reduced_field_td=12.0,
         source="near-thermal transverse diffusion of DME up to ~2-3 kV/cm at 1 atm [from memory: Villa 1983, "
-               "NIM 217, 273]: range 1.0-2.5; the nominal 1.6 is calibrated on the published modulation factors "
+               "NIM 217, 273]: range 1.0-2.5; the nominal 1.7 is calibrated on the published modulation factors "
                "of He/DME cells at 2.7-5.9 keV (docs/simulator.md), not measured"),
     MixtureTransport(
         name="He/DME", molecules=("He", "C2H6O"), quencher="C2H6O", quencher_fraction=(0.5, 1.0),
-        ratio=1.6, ratio_low=1.0, ratio_high=2.5, max_reduced_field_td=12.0,
+        ratio=1.7, ratio_low=1.0, ratio_high=2.5, max_reduced_field_td=12.0,
         source="model choice: the DME value (DME dominates the energy exchange of slow electrons; helium's "
                "elastic energy loss per collision is small), same range"),
     MixtureTransport(
         name="Ar/DME", molecules=("Ar", "C2H6O"), quencher="C2H6O", quencher_fraction=(0.3, 0.7),
-        ratio=1.6, ratio_low=1.0, ratio_high=3.0, max_reduced_field_td=8.0,
+        ratio=1.7, ratio_low=1.0, ratio_high=3.0, max_reduced_field_td=8.0,
         source="model choice: the DME value; argon warms the electrons where DME is diluted, so the range is "
                "widened to 1.0-3.0 (no measurement at hand)"),
 )
