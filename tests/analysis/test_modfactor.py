@@ -36,7 +36,10 @@ def test_curve_from_polarized_runs():
     result = stokes_parameters(phi, modulation_factor=curve(energy))
     assert abs(result.degree - 0.4) < 4 * result.degree_err
     assert abs(result.angle_deg + 30.0) < 4 * result.angle_err_deg
-    assert "ModulationFactorCurve" in repr(curve)
+    text = repr(curve)
+    # "degree" is the polarization's word: the curve's form is said as a polynomial order, with its fit quality
+    assert "ModulationFactorCurve" in text and "polynomial of order 2 in ln E" in text and "degree" not in text
+    assert "chi2/ndof" in text and not curve.quality.poor  # 4 points, 3 coefficients: one degree of freedom
 
 
 def test_unknown_angle_and_partial_polarization():

@@ -64,6 +64,10 @@ def test_fe55_fit_recovers_peak_and_resolution():
     assert abs(fit.fwhm_frac - 0.18) < 4 * fit.fwhm_frac_err
     assert abs(fit.counts_kbeta / fit.counts - 0.1) < 0.07  # spread 0.017 in 40 toys of this size
     assert fit.deviance / fit.ndof < 1.5 and fit.success
+    # the uniform background of 3000 events over 0.5-1.5 x 5.9 keV (toy) puts 3000 x 5800 / 5900 in the range
+    assert fit.background_counts == pytest.approx(3000 * 5800 / 5900, rel=0.15)
+    text = repr(fit)
+    assert "background in range" in text and "per unit" not in text and "fit quality" in text
 
 
 def test_fe55_peak_precision():

@@ -20,12 +20,15 @@ What to use when
   any event table; :func:`build_calibration` makes one from calibration runs (``trackfit calibrate``);
   :func:`measure_polarization` does selection + calibration + Stokes on a table in one call
   (``trackfit polarization``). :func:`bragg_mosaic_polarization` gives the degree of a Bragg-reflected beam.
+* Fit quality: every fit reports its goodness of fit (``fit.quality``, :mod:`~trackfit.analysis.fitquality`);
+  :class:`FitQualityWarning` says when one is poor.
 * Figures: :mod:`trackfit.analysis.figures` (matplotlib, imported lazily).
 """
 
 from . import figures  # noqa: F401  (matplotlib itself is imported inside the functions)
 from .calfile import CALIBRATION_FORMAT_VERSION, Calibration, CalibrationFormatError
 from .calibrate import CalibrationReport, CalibrationRun, build_calibration
+from .fitquality import FitQuality, FitQualityWarning
 from .gainmap import GainMap, fit_gain_map
 from .gaintime import GainDrift, fit_gain_drift
 from .modfactor import (
@@ -77,13 +80,14 @@ from .stokes import (
 __all__ = [
     "AllOf", "AnyOf", "CALIBRATION_FORMAT_VERSION", "Calibration", "CalibrationFormatError", "CalibrationReport",
     "CalibrationRun", "CircleRegion", "Cut", "CutFlow", "ElongationCut", "EnergyScale", "EnergyWindow",
-    "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV", "FE55_LINES_KEV", "GainDrift", "GainMap", "HexagonRegion",
-    "Invert", "LineFit", "MDP99_CONSTANT", "ModulationFactorCurve", "ModulationFactorPoint", "ModulationFit",
-    "PixelCountCut", "PolarizationMeasurement", "RangeCut", "RectangleRegion", "SelectionError", "SpuriousMap",
-    "SpuriousSeparation", "StatusCut", "StokesBands", "StokesResult", "StokesSums", "bragg_angle_rad",
-    "bragg_energy_kev", "bragg_mosaic_polarization", "build_calibration", "cell_edges", "ellipticity_weights",
-    "fit_fe55", "fit_gain_drift", "fit_gain_map", "fit_line", "fit_modulation_factor_curve", "mdp99",
-    "measure_modulation_factor", "measure_polarization", "measure_spurious_map", "modulation_curve",
-    "read_selection", "rice_interval", "select_rows", "selection_from_dict", "selection_to_dict",
-    "separate_spurious", "stokes_in_bands", "stokes_parameters", "stokes_sums", "write_selection",
+    "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV", "FE55_LINES_KEV", "FitQuality", "FitQualityWarning",
+    "GainDrift", "GainMap", "HexagonRegion", "Invert", "LineFit", "MDP99_CONSTANT", "ModulationFactorCurve",
+    "ModulationFactorPoint", "ModulationFit", "PixelCountCut", "PolarizationMeasurement", "RangeCut",
+    "RectangleRegion", "SelectionError", "SpuriousMap", "SpuriousSeparation", "StatusCut", "StokesBands",
+    "StokesResult", "StokesSums", "bragg_angle_rad", "bragg_energy_kev", "bragg_mosaic_polarization",
+    "build_calibration", "cell_edges", "ellipticity_weights", "fit_fe55", "fit_gain_drift", "fit_gain_map",
+    "fit_line", "fit_modulation_factor_curve", "mdp99", "measure_modulation_factor", "measure_polarization",
+    "measure_spurious_map", "modulation_curve", "read_selection", "rice_interval", "select_rows",
+    "selection_from_dict", "selection_to_dict", "separate_spurious", "stokes_in_bands", "stokes_parameters",
+    "stokes_sums", "write_selection",
 ]

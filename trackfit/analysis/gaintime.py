@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import interpolate, optimize
 
+from .fitquality import FitQuality, fit_quality
 from .gainmap import grouped_peaks
 from .spectrum import fit_line
 
@@ -78,12 +79,19 @@ class GainDrift:
         """``PH / G_rel(t)``."""
         return np.asarray(pulse_height, dtype=float) / self.gain_at(time_s)
 
+    @property
+    def quality(self) -> FitQuality:
+        """Chi-square of the slice peaks about the model against ``slices - 3`` for the charging model (the
+        smoothing spline has no fixed number of parameters: not testable)."""
+        ndof = self.slice_peak.size - 3 if self.model == "charging" else 0  # g0, depth, tau_s free; t0_s fixed
+        return fit_quality(self.chi2, ndof, "chi2")
+
     def __repr__(self):
         span = f"{self.node_time_s[0]:.4g}–{self.node_time_s[-1]:.4g} s"
         drift = f"{self.node_gain.min():.4f}–{self.node_gain.max():.4f}"
         params = ", ".join(f"{k} = {v:.4g}" for k, v in self.parameters.items())
         return (f"GainDrift ({self.model}{'; ' + params if params else ''}): {self.slice_time_s.size} slices over "
-                f"{span}, relative gain {drift}, chi2 = {self.chi2:.1f}")
+                f"{span}, relative gain {drift}; {self.quality}")
 
     def _repr_html_(self):
         return f"<pre>{html.escape(repr(self))}</pre>"
@@ -131,7 +139,7 @@ def fit_gain_drift(time_s, pulse_height, *, n_slices: int = 20, model: str = "ch
     if fit_range is None:
         fit_range = (0.5 * fit_line(ph, bins=100).peak, 1.5 * fit_line(ph, bins=100).peak)
     slices = np.array_split(np.arange(t.size), int(n_slices))
-    peaks, errors, _ = grouped_peaks(ph, slices, line=line, bins=bins, fit_range=fit_range)
+    peaks, errors = grouped_peaks(ph, slices, line=line, bins=bins, fit_range=fit_range)[:2]
     times = np.array([t[idx].mean() for idx in slices])
     ok = np.isfinite(peaks)
     times, peaks, errors = times[ok], peaks[ok], errors[ok]

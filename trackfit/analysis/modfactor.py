@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .fitquality import FitQuality, fit_quality
 from .stokes import StokesResult, stokes_sums
 
 __all__ = ["ModulationFactorPoint", "ModulationFactorCurve", "measure_modulation_factor",
@@ -135,9 +136,20 @@ class ModulationFactorCurve:
         """(measured - curve) / error at the measured points."""
         return (np.asarray(self.points_value) - self(self.points_energy_kev)) / np.asarray(self.points_error)
 
+    @property
+    def quality(self) -> FitQuality:
+        """Chi-square of the measured points about the curve against ``n_points - n_coefficients`` (not testable
+        when the curve has as many coefficients as points)."""
+        residuals = self.residuals()
+        return fit_quality(float(np.sum(residuals**2)), len(residuals) - len(self.coefficients), "chi2")
+
     def __repr__(self):
-        lines = [f"ModulationFactorCurve: {len(self.points_value)} points, "
-                 f"{self.energy_range_kev[0]:g}–{self.energy_range_kev[1]:g} keV, degree {len(self.coefficients) - 1}"]
+        order = len(self.coefficients) - 1
+        form = "constant" if order == 0 else f"polynomial of order {order} in ln E"
+        quality = self.quality
+        lines = [f"ModulationFactorCurve: {form} through {len(self.points_value)} point(s), "
+                 f"{self.energy_range_kev[0]:g}–{self.energy_range_kev[1]:g} keV"
+                 + (f"; {quality}" if quality.ndof > 0 else "")]
         lines.append(f"  {'E (keV)':>9}{'measured':>12}{'error':>9}{'curve':>9}")
         for e, v, s in zip(self.points_energy_kev, self.points_value, self.points_error, strict=True):
             lines.append(f"  {e:>9.3f}{v:>12.4f}{s:>9.4f}{float(self(e)):>9.4f}")

@@ -18,6 +18,7 @@ import numpy as np
 from scipy import optimize
 
 from ._fitting import fit_binned_poisson
+from .fitquality import FitQuality, fit_quality
 
 __all__ = ["ModulationFit", "modulation_curve"]
 
@@ -71,6 +72,11 @@ class ModulationFit:
 
         return float(stats.chi2.sf(self.chi2, self.ndof))
 
+    @property
+    def quality(self) -> FitQuality:
+        """Goodness of fit: the chi-square against ``ndof`` (:mod:`trackfit.analysis.fitquality`)."""
+        return fit_quality(self.chi2, self.ndof, "chi2")
+
     def density(self, phi_rad) -> np.ndarray:
         """Fitted curve in events per radian."""
         return self.a + self.b * np.cos(np.asarray(phi_rad) - self.phase_rad) ** 2
@@ -86,7 +92,7 @@ class ModulationFit:
                 ("phase", f"{np.rad2deg(self.phase_rad):.2f}° ± {np.rad2deg(self.phase_err_rad):.2f}°"),
                 ("A, B (per rad)", f"{self.a:.6g}, {self.b:.6g}"),
                 ("events (fit)", f"{self.n_fit:.6g} ± {self.n_fit_err:.3g}"),
-                ("chi2 / ndof", f"{self.chi2:.1f} / {self.ndof} (p = {self.p_value:.3f})"),
+                ("fit quality", str(self.quality)),
                 ("bins", f"{self.counts.size}{' (weighted)' if self.weighted else ''}")]
 
     def __repr__(self):

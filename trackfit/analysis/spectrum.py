@@ -18,6 +18,7 @@ import numpy as np
 from scipy import special, stats
 
 from ._fitting import fit_binned_poisson
+from .fitquality import FitQuality, fit_quality
 
 __all__ = [
     "FE55_LINES_KEV",
@@ -128,6 +129,16 @@ class LineFit:
     def peak_rel_err(self) -> float:
         return self.peak_err / self.peak
 
+    @property
+    def quality(self) -> FitQuality:
+        """Goodness of fit: the Poisson deviance against ``ndof`` (:mod:`trackfit.analysis.fitquality`)."""
+        return fit_quality(self.deviance, self.ndof, "deviance")
+
+    @property
+    def background_counts(self) -> float:
+        """Events of the fitted background in the fit range (the slope integrates to zero over it)."""
+        return float(self.background_level * (self.edges[-1] - self.edges[0]))
+
     def density(self, x) -> np.ndarray:
         """Fitted model as counts per unit of the spectrum at ``x`` (for smooth curves in figures)."""
         x = np.asarray(x, dtype=float)
@@ -149,9 +160,11 @@ class LineFit:
                 ("counts in line", f"{self.counts:.1f} ± {self.counts_err:.1f}")]
         if self.model == "fe55":
             rows.append(("counts in K-beta", f"{self.counts_kbeta:.1f} ± {self.counts_kbeta_err:.1f}"))
-        rows += [("background at centre", f"{self.background_level:.4g} per unit"),
-                 ("deviance / ndof", f"{self.deviance:.1f} / {self.ndof}"),
-                 ("events in range", f"{self.n_events}"), ("converged", str(self.success))]
+        share = 100.0 * self.background_counts / self.n_events if self.n_events else float("nan")
+        rows += [("background in range", f"{self.background_counts:.1f} events ({share:.1f} % of the range)"),
+                 ("events in range", f"{self.n_events}"),
+                 ("fit quality", str(self.quality)),
+                 ("minimiser", "converged" if self.success else "did not converge")]
         return rows
 
     def __repr__(self):
