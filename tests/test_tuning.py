@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 import trackfit
-from trackfit.recon import ReconConfig
+from trackfit.recon import ReconConfig, Status
 from trackfit.tuning import read_settings, sweep_settings
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_data"
@@ -52,7 +52,9 @@ def test_metrics_match_direct_formulas(sweep):
         batch = reader.read_batch(0, 3000)
         n_run = len(reader)
     table = trackfit.reconstruct(batch, config)
-    keep = table["status"] == 0
+    # the default selection: an emission angle and none of the failure bits listed in trackfit.recon.status
+    failures = Status.MALFORMED_INPUT | Status.NO_SIGNAL | Status.TOO_FEW_PIXELS | Status.SINGLE_PIXEL | Status.ROUND
+    keep = np.isfinite(table["emission_rad"]) & ((table["status"] & int(failures)) == 0)
     keep &= (table["energy_kev"] >= 4.0) & (table["energy_kev"] < 8.0)
     if not math.isnan(row["elongation_min"]):
         keep &= table["m2_major_mm2"] >= row["elongation_min"] * table["m2_minor_mm2"]

@@ -7,7 +7,8 @@ selection cuts (energy window, minimum elongation, minimum pixel count, fiducial
 a 100 %-polarized (or known-degree) run and an unpolarized run. The kernels run again only when a reconstruction
 parameter changes; cut-only points reuse the event tables. For every point it reports:
 
-* ``efficiency``: fraction of the polarized subsample kept (fully reconstructed and passing the cuts), epsilon;
+* ``efficiency``: fraction of the polarized subsample kept (the default selection, an emission angle and no failure
+  status bit, and the cuts), epsilon;
 * ``modulation``: the modulation factor mu of the kept events (measured modulation / known degree), with error;
 * ``quality``: the quality factor ``mu * sqrt(epsilon)`` with error; MDP scales as its inverse (docs/methods.md §2);
 * ``mdp99``: MDP99 for the events the whole run would keep (Weisskopf et al. 2010);
@@ -61,8 +62,9 @@ def load_subsample(source, n_events: int | None) -> tuple[EventBatch, int]:
 
 
 def _selection_dict(point: Mapping) -> dict:
-    """The selection (in the keys of :func:`trackfit.analysis.selection_from_dict`) of one cut point."""
-    selection: dict = {"status": True}
+    """The selection (in the keys of :func:`trackfit.analysis.selection_from_dict`) of one cut point; the default
+    selection comes with every selection file, so it is not a key."""
+    selection: dict = {}
     if point.get("energy_kev") is not None:
         low, high = point["energy_kev"]
         selection["energy_kev"] = [float(low), float(high)]
@@ -279,7 +281,8 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
         ``{"start_search_inner_rms": [1.2, 1.5, 1.8], "second_pass_length_mm": [0.03, 0.05]}``.
     cut_grid : mapping of str to sequence
         Keys of :data:`CUT_PARAMETERS` -> values, e.g. ``{"energy_kev": [(5.0, 7.0)], "elongation_min": [1, 1.5]}``.
-        A value ``None`` means "no such cut". Every point keeps only fully reconstructed events (``status == 0``).
+        A value ``None`` means "no such cut". Every point keeps the default selection (an emission angle, no
+        failure bit) and adds its cuts.
     base_config : ReconConfig, optional
         Settings not in ``recon_grid`` (default ``ReconConfig()``).
     n_events : int or None
@@ -373,7 +376,7 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
 def read_settings(path):
     """Read a settings file written by :meth:`SweepResult.write_toml`: ``(ReconConfig, Cut)``.
 
-    A file with only reconstruction keys gives the selection "fully reconstructed events" (``status == 0``).
+    A file with only reconstruction keys gives the default selection (an emission angle and no failure bit).
     """
     from .analysis import selection_from_dict
     from .recon import ReconConfig
@@ -389,6 +392,6 @@ def read_settings(path):
     if unknown:
         raise ValueError(f"settings file '{path}': unknown table(s) {unknown}; expected [recon] and [selection]")
     config = ReconConfig.from_dict(values.get("recon", {}), source=f"settings file '{path}' [recon]")
-    selection = selection_from_dict(values.get("selection", {"status": True}),
+    selection = selection_from_dict(values.get("selection", {}),
                                     source=f"settings file '{path}' [selection]")
     return config, selection

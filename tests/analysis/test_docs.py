@@ -15,8 +15,9 @@ def test_toml_example_is_a_valid_selection():
 
     blocks = re.findall(r"```toml\n(.*?)```", DOC.read_text(), flags=re.S)
     selection = selection_from_dict(tomllib.loads(blocks[0]))
-    table = {"status": np.array([0, 512]), "energy_kev": np.array([5.0, 5.0]), "n_pixels": np.array([50, 50]),
+    table = {"status": np.array([0, 512]), "emission_rad": np.array([0.1, 0.2]), "energy_kev": np.array([5.0, 5.0]),
+             "n_pixels": np.array([50, 50]),
              "m2_major_mm2": np.array([2.0, 2.0]), "m2_minor_mm2": np.array([1.0, 1.0]),
              "conv_x_mm": np.zeros(2), "conv_y_mm": np.zeros(2), "peak_adc": np.array([100, 100])}
     assert selection.mask(table).tolist() == [True, True]  # bit 512 is ROI_BORDER, allowed
-    assert len(selection.steps()) == 6
+    assert len(selection.steps()) == 7  # the default selection and the six cuts of the example

@@ -7,14 +7,23 @@ from trackfit.analysis import (
     CircleRegion,
     ElongationCut,
     EnergyWindow,
+    Everything,
     HexagonRegion,
+    NoEventsLeftError,
     PixelCountCut,
     RectangleRegion,
     SelectionError,
+    SelectionMismatchWarning,
     StatusCut,
+    UsableEvents,
+    cut_from_dict,
+    default_selection,
     read_selection,
+    selection_differences,
     selection_from_dict,
+    with_default,
 )
+from trackfit.analysis.selection import warn_if_selections_differ
 from trackfit.recon.status import Status
 
 
@@ -26,6 +35,7 @@ def table():
         "status": np.where(rng.random(n) < 0.1, int(Status.ROI_BORDER), 0).astype(np.uint16)
         | np.where(rng.random(n) < 0.05, int(Status.TOO_FEW_PIXELS), 0).astype(np.uint16),
         "energy_kev": rng.uniform(1, 10, n).astype(np.float32),
+        "emission_rad": np.where(rng.random(n) < 0.03, np.nan, rng.uniform(-np.pi, np.pi, n)),
         "n_pixels": rng.integers(1, 500, n).astype(np.int32),
         "m2_major_mm2": rng.uniform(0.001, 0.02, n),
         "m2_minor_mm2": rng.uniform(0.0, 0.01, n),
@@ -109,8 +119,9 @@ def test_toml_selection(tmp_path, table):
     expected = (StatusCut(allowed_bits=Status.ROI_BORDER) & EnergyWindow(low_kev=2, high_kev=8)
                 & ElongationCut(low=1.2) & HexagonRegion(radius_mm=6, rotation_rad=np.pi / 6)
                 & PixelCountCut(low=10, high=400))
-    assert np.array_equal(sel.mask(table), expected.mask(table))
-    assert len(sel.steps()) == 5
+    # a selection file always starts with the default selection, then adds its cuts
+    assert np.array_equal(sel.mask(table), expected.mask(table) & UsableEvents().mask(table))
+    assert len(sel.steps()) == 6 and sel.steps()[0] == UsableEvents()
 
 
 def test_toml_unknown_keys_listed():
@@ -130,6 +141,107 @@ def test_selection_file_round_trip(tmp_path, table):
     path = tmp_path / "sel.toml"
     write_selection(sel, path)
     again = read_selection(path)
-    assert np.array_equal(again.mask(table), sel.mask(table))
+    assert np.array_equal(again.mask(table), with_default(sel).mask(table))
+    strict = with_default(EnergyWindow(low_kev=2), reject_warnings=True)
+    write_selection(strict, path)
+    assert read_selection(path) == strict  # reject_warnings survives the file
     with pytest.raises(SelectionError, match="cannot express"):
         write_selection(StatusCut() | EnergyWindow(low_kev=1), path)
+
+
+# ------------------------------------------------------------------------------------------ the default selection
+# The classification written in docs/table-format.md ("Status bits"): failures leave no emission angle or one the
+# reconstruction declares meaningless; a track touching the ROI edge is a warning.
+DOCUMENTED_FAILURES = ("MALFORMED_INPUT", "NO_SIGNAL", "TOO_FEW_PIXELS", "SINGLE_PIXEL", "ROUND")
+
+
+def test_default_selection_is_angle_and_no_failure_bit(table):
+    failures = 0
+    for name in DOCUMENTED_FAILURES:
+        failures |= int(Status[name])
+    expected = np.isfinite(table["emission_rad"]) & ((table["status"].astype(int) & failures) == 0)
+    assert np.array_equal(UsableEvents().mask(table), expected)
+    assert np.array_equal(default_selection().mask(table), expected)
+    # ROI_BORDER events pass by default; rejecting warnings keeps status == 0 only
+    border = (table["status"] & int(Status.ROI_BORDER)) > 0
+    assert UsableEvents().mask(table)[border & np.isfinite(table["emission_rad"]) & (table["status"] == 512)].all()
+    strict = UsableEvents(reject_warnings=True).mask(table)
+    assert np.array_equal(strict, np.isfinite(table["emission_rad"]) & (table["status"] == 0))
+
+
+def test_every_bit_is_a_failure_or_a_warning_with_a_reason():
+    from trackfit.recon.status import BIT_KIND, BIT_RATIONALE, FAILURE_BITS, WARNING_BITS
+
+    assert int(FAILURE_BITS) & int(WARNING_BITS) == 0
+    assert {bit.name for bit in Status if bit & FAILURE_BITS} == set(DOCUMENTED_FAILURES)
+    assert int(FAILURE_BITS) | int(WARNING_BITS) == sum(int(bit) for bit in Status)
+    assert int(Status.NO_EMISSION) & ~int(FAILURE_BITS) == 0  # no angle is always a failure
+    assert BIT_KIND[Status.ROI_BORDER] == "warning"
+    assert all(len(BIT_RATIONALE[bit]) > 20 for bit in Status)
+
+
+def test_cuts_add_to_the_default(table):
+    window = EnergyWindow(low_kev=2, high_kev=8)
+    selection = with_default(window)
+    assert selection.steps()[0] == UsableEvents() and selection.steps()[1] == window
+    assert np.array_equal(selection.mask(table), UsableEvents().mask(table) & window.mask(table))
+    flow = selection.cut_flow(table)
+    assert flow.rows[0][0] == "default: emission angle, no failure bit"  # the first line of every cut flow
+    # a selection that holds the default keeps its own (moved first), once
+    strict = with_default(window & UsableEvents(reject_warnings=True))
+    assert strict.steps() == (UsableEvents(reject_warnings=True), window)
+    assert with_default(Everything()).steps() == (UsableEvents(),) == with_default(None).steps()
+    assert with_default(None, reject_warnings=True).steps() == (UsableEvents(reject_warnings=True),)
+
+
+def test_selection_file_reject_warnings_key():
+    assert selection_from_dict({}).steps() == (UsableEvents(),)
+    assert selection_from_dict({"reject_warnings": True}).steps() == (UsableEvents(reject_warnings=True),)
+    with pytest.raises(SelectionError, match="reject_warnings must be true or false"):
+        selection_from_dict({"reject_warnings": "yes"})
+
+
+def test_cut_descriptions_read_back():
+    selection = with_default(StatusCut(allowed_bits=Status.ROI_BORDER) & EnergyWindow(low_kev=2, high_kev=8)
+                             & ElongationCut(low=1.2) & HexagonRegion(radius_mm=6, rotation_rad=0.5)
+                             & (PixelCountCut(low=10) | ~CircleRegion(radius_mm=1))
+                             & RectangleRegion(x_min_mm=0, x_max_mm=1, y_min_mm=0, y_max_mm=2))
+    assert cut_from_dict(selection.to_dict()) == selection
+    with pytest.raises(SelectionError, match="unknown cut"):
+        cut_from_dict({"cut": "Nope"})
+
+
+def test_differences_that_matter_for_a_calibration():
+    base = with_default(EnergyWindow(low_kev=2, high_kev=8))
+    # energy windows and regions choose which events are analysed: no difference
+    assert selection_differences(with_default(CircleRegion(radius_mm=2)), base) == ([], [])
+    # track-shape and status cuts change the modulation factor: reported on the side that has them
+    mine, theirs = selection_differences(with_default(ElongationCut(low=1.5)), base)
+    assert mine == ["elongation >= 1.5"] and theirs == []
+    mine, theirs = selection_differences(base, with_default(None, reject_warnings=True))
+    assert mine == ["default: emission angle, no failure bit"]
+    assert theirs == ["default: emission angle, no failure or warning bit"]
+    # an explicit status == 0 next to the default is the same as rejecting warnings (older calibration files)
+    assert selection_differences(StatusCut(), with_default(None, reject_warnings=True)) == ([], [])
+    with pytest.warns(SelectionMismatchWarning, match="only the calibration has 'elongation >= 1.5'"):
+        assert warn_if_selections_differ(base, ElongationCut(low=1.5), what="this run",
+                                         reference_name="the calibration")
+
+
+def test_no_events_left_shows_the_cut_flow(table):
+    selection = with_default(EnergyWindow(low_kev=50, high_kev=60))
+    error = NoEventsLeftError("in the run", selection.cut_flow(table))
+    text = str(error)
+    assert "no events left in the run" in text and "50 <= energy_kev < 60 keV" in text and " 0 " in text
+    assert "background" not in text
+
+
+def test_documented_kinds_match_the_code():
+    import re
+    from pathlib import Path
+
+    from trackfit.recon.status import BIT_KIND
+
+    doc = (Path(__file__).resolve().parents[2] / "docs" / "table-format.md").read_text()
+    kinds = dict(re.findall(r"^\| \d+ \| \d+ \| `([A-Z_]+)` \| (failure|warning) \|", doc, flags=re.M))
+    assert kinds == {bit.name: kind for bit, kind in BIT_KIND.items()}

@@ -2,10 +2,11 @@
 
 What to use when
 ----------------
-* Choose events with cuts from :mod:`~trackfit.analysis.selection` (:class:`StatusCut`, :class:`EnergyWindow`,
-  :class:`CircleRegion`, :class:`ElongationCut`, ...), combined with ``&``, ``|``, ``~``;
-  ``cut.cut_flow(table)`` says how many events each cut removed; ``read_selection("cuts.toml")`` reads them
-  from a file.
+* Choose events with cuts from :mod:`~trackfit.analysis.selection` (:class:`EnergyWindow`, :class:`CircleRegion`,
+  :class:`ElongationCut`, :class:`StatusCut`, ...), combined with ``&``, ``|``, ``~``; every analysis adds them to
+  the default selection, :class:`UsableEvents` (an emission angle and no failure bit; ``reject_warnings=True``
+  also drops warning bits), which :func:`with_default` puts first. ``cut.cut_flow(table)`` says how many events
+  each cut removed; ``read_selection("cuts.toml")`` reads them from a file.
 * Energy: :func:`fit_fe55` (blended Mn K-alpha/K-beta of an Fe-55 source) or :func:`fit_line` (one Gaussian) on
   pulse heights; :class:`EnergyScale` from one or more lines; :func:`fit_gain_map` (peak per spatial cell) and
   :func:`fit_gain_drift` (peak per time slice) for relative gains.
@@ -50,15 +51,22 @@ from .selection import (
     Everything,
     HexagonRegion,
     Invert,
+    NoEventsLeftError,
     PixelCountCut,
     RangeCut,
     RectangleRegion,
     SelectionError,
+    SelectionMismatchWarning,
     StatusCut,
+    UsableEvents,
+    cut_from_dict,
+    default_selection,
     read_selection,
     select_rows,
+    selection_differences,
     selection_from_dict,
     selection_to_dict,
+    with_default,
     write_selection,
 )
 from .sources import bragg_angle_rad, bragg_energy_kev, bragg_mosaic_polarization
@@ -82,12 +90,13 @@ __all__ = [
     "CalibrationRun", "CircleRegion", "Cut", "CutFlow", "ElongationCut", "EnergyScale", "EnergyWindow",
     "Everything", "FE55_KALPHA_KEV", "FE55_KBETA_KEV", "FE55_LINES_KEV", "FitQuality", "FitQualityWarning",
     "GainDrift", "GainMap", "HexagonRegion", "Invert", "LineFit", "MDP99_CONSTANT", "ModulationFactorCurve",
-    "ModulationFactorPoint", "ModulationFit", "PixelCountCut", "PolarizationMeasurement", "RangeCut",
-    "RectangleRegion", "SelectionError", "SpuriousMap", "SpuriousSeparation", "StatusCut", "StokesBands",
-    "StokesResult", "StokesSums", "bragg_angle_rad", "bragg_energy_kev", "bragg_mosaic_polarization",
-    "build_calibration", "cell_edges", "ellipticity_weights", "fit_fe55", "fit_gain_drift", "fit_gain_map",
+    "ModulationFactorPoint", "ModulationFit", "NoEventsLeftError", "PixelCountCut", "PolarizationMeasurement",
+    "RangeCut", "RectangleRegion", "SelectionError", "SelectionMismatchWarning", "SpuriousMap",
+    "SpuriousSeparation", "StatusCut", "StokesBands", "StokesResult", "StokesSums", "UsableEvents",
+    "bragg_angle_rad", "bragg_energy_kev", "bragg_mosaic_polarization", "build_calibration", "cell_edges",
+    "cut_from_dict", "default_selection", "ellipticity_weights", "fit_fe55", "fit_gain_drift", "fit_gain_map",
     "fit_line", "fit_modulation_factor_curve", "mdp99", "measure_modulation_factor", "measure_polarization",
     "measure_spurious_map", "modulation_curve", "read_selection", "rice_interval", "select_rows",
-    "selection_from_dict", "selection_to_dict", "separate_spurious", "stokes_in_bands", "stokes_parameters",
-    "stokes_sums", "write_selection",
+    "selection_differences", "selection_from_dict", "selection_to_dict", "separate_spurious", "stokes_in_bands",
+    "stokes_parameters", "stokes_sums", "with_default", "write_selection",
 ]

@@ -4,23 +4,36 @@ A cut is a frozen object that turns a table (any mapping of equal-length column 
 :class:`~trackfit.io.table.EventTable` or a plain ``dict``) into a boolean mask. Combining cuts with ``&`` keeps a
 flat list, so :meth:`Cut.cut_flow` can report, step by step, how many events each cut removed.
 
+The default selection
+---------------------
+Every analysis (``trackfit calibrate``, ``trackfit polarization``, :func:`~trackfit.analysis.build_calibration`,
+:func:`~trackfit.analysis.measure_polarization`, the tuning sweeps) keeps **the events with an emission angle and no
+failure bit** (:class:`UsableEvents`; the failure and warning bits are listed, with the reason for each, in
+:mod:`trackfit.recon.status`). Further cuts are added to it, never substituted for it: :func:`with_default` puts it
+first in any selection, so it is the first line of every cut flow. Rejecting the warning bits too (a truncated
+track at the ROI edge, a saturated pixel, a first-pass angle) is a separate choice:
+``UsableEvents(reject_warnings=True)``, ``--reject-warnings`` on the command line, ``reject_warnings = true`` in a
+selection file.
+
 Examples
 --------
 >>> import numpy as np
->>> table = {"status": np.array([0, 0, 4, 0]), "energy_kev": np.array([2.0, 5.9, 6.0, 9.5])}
->>> selection = StatusCut() & EnergyWindow(low_kev=3.0, high_kev=8.0)
+>>> table = {"status": np.array([0, 0, 4, 0]), "emission_rad": np.array([0.1, 0.2, 0.3, 0.4]),
+...          "energy_kev": np.array([2.0, 5.9, 6.0, 9.5])}
+>>> selection = with_default(EnergyWindow(low_kev=3.0, high_kev=8.0))
 >>> selection.mask(table).tolist()
 [False, True, False, False]
 >>> print(selection.cut_flow(table))  # doctest: +NORMALIZE_WHITESPACE
-cut                              kept  removed  kept/input
-(input)                             4        -     100.0 %
-status == 0                         3        1      75.0 %
-3 <= energy_kev < 8 keV             1        2      25.0 %
+cut                                              kept  removed  kept/input
+(input)                                             4        -     100.0 %
+default: emission angle, no failure bit             3        1      75.0 %
+3 <= energy_kev < 8 keV                             1        2      25.0 %
 """
 
 from __future__ import annotations
 
 import html
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 
@@ -28,6 +41,14 @@ import numpy as np
 
 __all__ = [
     "Cut",
+    "UsableEvents",
+    "default_selection",
+    "with_default",
+    "cut_from_dict",
+    "selection_differences",
+    "SelectionMismatchWarning",
+    "warn_if_selections_differ",
+    "NoEventsLeftError",
     "AllOf",
     "AnyOf",
     "Invert",
@@ -52,6 +73,18 @@ __all__ = [
 
 class SelectionError(ValueError):
     """A selection that cannot be built or applied (bad parameter, missing column)."""
+
+
+class SelectionMismatchWarning(UserWarning):
+    """Two selections that should be the same are not (e.g. a measurement and the calibration it uses)."""
+
+
+class NoEventsLeftError(ValueError):
+    """A selection kept no event; the message shows the cut flow, so the cut that removed them is visible."""
+
+    def __init__(self, what: str, flow: CutFlow):
+        self.flow = flow
+        super().__init__(f"no events left {what} after the selection:\n{flow}")
 
 
 def _column(table: Mapping, name: str) -> np.ndarray:
@@ -162,7 +195,10 @@ class AllOf(Cut):
         return keep
 
     def describe(self):
-        return " and ".join(f"({p.describe()})" for p in self.parts) if self.parts else "all events"
+        if not self.parts:
+            return "all events"
+        return " and ".join(f"({p.describe()})" if isinstance(p, AllOf | AnyOf | Invert) else p.describe()
+                            for p in self.parts)
 
     def steps(self):
         return tuple(self.parts)
@@ -238,6 +274,74 @@ class StatusCut(Cut):
         except ImportError:  # pragma: no cover - reconstruction package absent
             names = f"{self.allowed_bits:#x}"
         return f"status only {names}"
+
+
+def _status_bits_of(kind: str) -> int:
+    from ..recon.status import FAILURE_BITS, WARNING_BITS
+
+    return int(FAILURE_BITS) if kind == "failure" else int(WARNING_BITS)
+
+
+@dataclass(frozen=True, kw_only=True)
+class UsableEvents(Cut):
+    """The default selection: events with an emission angle and no failure bit.
+
+    Failure bits (:data:`trackfit.recon.status.FAILURE_BITS`) mark events without an emission angle or with one
+    the reconstruction declares meaningless; warning bits (:data:`trackfit.recon.status.WARNING_BITS`) mark
+    usable events with a caution (a track touching the ROI edge, a saturated pixel, a first-pass angle).
+
+    Parameters
+    ----------
+    reject_warnings : bool
+        Also reject every warning bit (then only ``status == 0`` events with an angle pass). Default False.
+    """
+
+    reject_warnings: bool = False
+
+    def __post_init__(self):
+        if not isinstance(self.reject_warnings, bool | np.bool_):
+            raise SelectionError(f"'reject_warnings' must be true or false (got {self.reject_warnings!r})")
+        object.__setattr__(self, "reject_warnings", bool(self.reject_warnings))
+
+    @property
+    def rejected_bits(self) -> int:
+        """Status bits that remove an event."""
+        bits = _status_bits_of("failure")
+        return bits | _status_bits_of("warning") if self.reject_warnings else bits
+
+    def mask(self, table):
+        status = _column(table, "status").astype(np.int64)
+        with np.errstate(invalid="ignore"):
+            angle = np.isfinite(_column(table, "emission_rad").astype(float))
+        return angle & ((status & np.int64(self.rejected_bits)) == 0)
+
+    def describe(self):
+        if self.reject_warnings:
+            return "default: emission angle, no failure or warning bit"
+        return "default: emission angle, no failure bit"
+
+
+def default_selection(*, reject_warnings: bool = False) -> UsableEvents:
+    """The selection every analysis starts from (see the module docstring)."""
+    return UsableEvents(reject_warnings=reject_warnings)
+
+
+def with_default(selection: Cut | None = None, *, reject_warnings: bool = False) -> Cut:
+    """``selection`` with the default selection as its first step.
+
+    A selection that already holds a :class:`UsableEvents` step keeps it (moved first, so it heads the cut flow);
+    otherwise ``UsableEvents(reject_warnings=reject_warnings)`` is added in front. ``None`` gives the default alone.
+    Cuts are combined with "and", so the order changes the cut flow only, never the events kept.
+    """
+    if selection is None:
+        return AllOf(parts=(default_selection(reject_warnings=reject_warnings),))
+    steps = selection.steps()
+    base = [step for step in steps if isinstance(step, UsableEvents)]
+    rest = tuple(step for step in steps if not isinstance(step, UsableEvents))
+    if not base:
+        base = [default_selection(reject_warnings=reject_warnings)]
+    first = UsableEvents(reject_warnings=any(b.reject_warnings for b in base))
+    return AllOf(parts=(first,) + rest)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -469,7 +573,8 @@ class CutFlow:
 
 
 # ---------------------------------------------------------------------------------------------- TOML selections
-_TOML_KEYS = ("status", "allowed_status", "energy_kev", "n_pixels", "elongation", "region", "range")
+_TOML_KEYS = ("reject_warnings", "status", "allowed_status", "energy_kev", "n_pixels", "elongation", "region",
+              "range")
 _REGION_KEYS = {
     "circle": ("shape", "x_mm", "y_mm", "radius_mm", "position"),
     "rectangle": ("shape", "x_min_mm", "x_max_mm", "y_min_mm", "y_max_mm", "position"),
@@ -500,10 +605,12 @@ def _status_bits(where, names) -> int:
 def selection_from_dict(config: Mapping, *, source: str = "selection") -> Cut:
     """Build a selection from a plain mapping (the content of a selection TOML file).
 
-    Keys (all optional; a missing key means no cut):
+    The default selection (:class:`UsableEvents`: an emission angle and no failure bit) is always the first step;
+    the keys add to it (all optional; a missing key means no cut):
 
-    ``status = true``            only fully reconstructed events (``status == 0``);
-    ``allowed_status = [names]`` in addition allow these :class:`~trackfit.recon.status.Status` bits;
+    ``reject_warnings = true``   also reject events with a warning bit (default false);
+    ``status = true``            an explicit status cut: only ``status == 0`` ...
+    ``allowed_status = [names]`` ... except these :class:`~trackfit.recon.status.Status` bits;
     ``energy_kev = [lo, hi]``    energy window; ``n_pixels = [lo, hi]``; ``elongation = [lo, hi]``;
     ``[region]``                 ``shape = "circle" | "rectangle" | "hexagon"`` and the parameters of
                                  :class:`CircleRegion`, :class:`RectangleRegion`, :class:`HexagonRegion`
@@ -518,7 +625,10 @@ def selection_from_dict(config: Mapping, *, source: str = "selection") -> Cut:
     unknown = sorted(set(config) - set(_TOML_KEYS))
     if unknown:
         raise SelectionError(f"{source}: unknown key(s) {unknown}; valid keys: {list(_TOML_KEYS)}")
-    parts: list[Cut] = []
+    reject = config.get("reject_warnings", False)
+    if not isinstance(reject, bool):
+        raise SelectionError(f"{source}: reject_warnings must be true or false (got {reject!r})")
+    parts: list[Cut] = [UsableEvents(reject_warnings=reject)]
     if config.get("status", False) or "allowed_status" in config:
         bits = _status_bits(f"{source}: allowed_status", config.get("allowed_status", []))
         parts.append(StatusCut(allowed_bits=bits))
@@ -561,7 +671,7 @@ def read_selection(path) -> Cut:
     """Read a selection TOML file (see :func:`selection_from_dict` for the keys).
 
     A settings file of :mod:`trackfit.tuning` (tables ``[recon]`` and ``[selection]``) is read too: its
-    ``[selection]`` table is the selection.
+    ``[selection]`` table is the selection. The default selection is always its first step.
     """
     import tomllib
 
@@ -583,7 +693,8 @@ def _bounds(part) -> list[float]:
 
 def selection_to_dict(selection: Cut) -> dict:
     """The inverse of :func:`selection_from_dict` for selections that a selection file can express (a conjunction of
-    at most one status cut, energy window, pixel-count cut, elongation cut and region, plus column ranges).
+    the default selection and at most one status cut, energy window, pixel-count cut, elongation cut and region, plus
+    column ranges). A file always holds the default selection, so a selection without it reads back with it.
 
     Raises
     ------
@@ -592,6 +703,10 @@ def selection_to_dict(selection: Cut) -> dict:
     """
     config: dict = {}
     for part in selection.steps():
+        if isinstance(part, UsableEvents):
+            if part.reject_warnings:
+                config["reject_warnings"] = True
+            continue
         if isinstance(part, StatusCut):
             key = "status"
             value = True
@@ -632,3 +747,98 @@ def write_selection(selection: Cut, path) -> None:
 
     with open(path, "w", encoding="utf-8") as handle:
         handle.write(dumps(selection_to_dict(selection), header="trackfit event selection"))
+
+
+# ---------------------------------------------------------------------------------------------- comparing selections
+_CUT_CLASSES = {cls.__name__: cls for cls in (Everything, UsableEvents, StatusCut, RangeCut, EnergyWindow,
+                                              PixelCountCut, ElongationCut, CircleRegion, RectangleRegion,
+                                              HexagonRegion)}
+
+
+def cut_from_dict(description: Mapping) -> Cut:
+    """The cut described by :meth:`Cut.to_dict` (e.g. the ``cuts`` recorded in a calibration file).
+
+    Raises
+    ------
+    SelectionError
+        For a description that names no known cut or has parameters the cut does not take.
+    """
+    if not isinstance(description, Mapping) or "cut" not in description:
+        raise SelectionError(f"a cut description is a mapping with a 'cut' key (got {description!r})")
+    name = description["cut"]
+    values = {k: v for k, v in description.items() if k != "cut"}
+    if name == "AllOf":
+        return AllOf(parts=tuple(cut_from_dict(p) for p in values.get("parts", [])))
+    if name == "AnyOf":
+        return AnyOf(parts=tuple(cut_from_dict(p) for p in values.get("parts", [])))
+    if name == "Invert":
+        return Invert(part=cut_from_dict(values.get("part", {})))
+    if name not in _CUT_CLASSES:
+        raise SelectionError(f"unknown cut {name!r}; known: {sorted(_CUT_CLASSES) + ['AllOf', 'AnyOf', 'Invert']}")
+    try:
+        return _CUT_CLASSES[name](**values)
+    except TypeError as err:
+        raise SelectionError(f"cut {name!r}: {err}") from None
+
+
+#: cuts on these columns choose which events of a run are analysed (energy band, region, time) without changing
+#: the population of tracks at a given energy and position
+_WHERE_COLUMNS = frozenset({"energy_kev", "pulse_height", "time_s", "trigger_id", "conv_x_mm", "conv_y_mm",
+                            "centroid_x_mm", "centroid_y_mm"})
+
+
+def _population_steps(selection: Cut) -> dict[str, str]:
+    """The steps of a selection that change which tracks are kept at a given energy and position (status,
+    track-shape cuts), normalised: ``status == 0`` next to the default counts as ``reject_warnings``."""
+    steps = with_default(selection).steps()
+    base = steps[0]
+    out = {}
+    for step in steps[1:]:
+        if isinstance(step, EnergyWindow | CircleRegion | RectangleRegion | HexagonRegion):
+            continue
+        if type(step) is RangeCut and step.column in _WHERE_COLUMNS:
+            continue
+        if isinstance(step, StatusCut) and step.allowed_bits == 0:
+            base = UsableEvents(reject_warnings=True)
+            continue
+        out[repr(sorted(step.to_dict().items(), key=str))] = step.describe()
+    out[repr(sorted(base.to_dict().items(), key=str))] = base.describe()
+    return out
+
+
+def selection_differences(selection: Cut | None, reference: Cut | None) -> tuple[list[str], list[str]]:
+    """How two selections differ in the cuts that change the tracks kept at a given energy and position.
+
+    Status and track-shape cuts (the default selection and ``reject_warnings``, ``status``, pixel count,
+    elongation, ranges of other columns) change the modulation factor and the spurious modulation of the events
+    kept, so a measurement must repeat those of its calibration; energy windows, regions and time ranges choose
+    *which* events are analysed and may differ (the calibration is a function of energy and position).
+
+    Returns
+    -------
+    (only_in_selection, only_in_reference) : two lists of str
+        The descriptions of the cuts found in only one of them (both empty when they agree).
+    """
+    mine, theirs = _population_steps(selection), _population_steps(reference)
+    return ([text for key, text in mine.items() if key not in theirs],
+            [text for key, text in theirs.items() if key not in mine])
+
+
+_CALIBRATION_REASON = ("These cuts change the modulation factor and the spurious modulation: use the same ones "
+                       "(energy windows and regions may differ)")
+
+
+def warn_if_selections_differ(selection: Cut | None, reference: Cut | None, *, what: str, reference_name: str,
+                              reason: str = _CALIBRATION_REASON, stacklevel: int = 3) -> bool:
+    """Emit a :class:`SelectionMismatchWarning` when :func:`selection_differences` finds a difference; returns
+    whether it did. ``what`` and ``reference_name`` name the two selections in the message, ``reason`` says why
+    it matters."""
+    mine, theirs = selection_differences(selection, reference)
+    if not (mine or theirs):
+        return False
+    clauses = [f"only {name} has " + ", ".join(f"'{t}'" for t in texts)
+               for name, texts in ((what, mine), (reference_name, theirs)) if texts]
+    warnings.warn(SelectionMismatchWarning(
+        f"{what} and {reference_name} ('{with_default(reference).describe()}') differ in status and track-shape "
+        f"cuts: {'; '.join(clauses)}. {reason}"), stacklevel=stacklevel)
+    return True

@@ -1,13 +1,18 @@
 """Status bits of the reconstruction: every fallback of the kernels sets one, so no value is ever unexplained.
 
-``status == 0`` means the event was fully reconstructed with no warning. Bits are of two kinds:
+``status == 0`` means the event was fully reconstructed with no warning. Every bit is either a failure or a
+warning (:data:`BIT_KIND`, with the reason in :data:`BIT_RATIONALE`):
 
-* failures that leave a quantity undefined (``NaN`` in the table): :data:`Status.MALFORMED_INPUT`,
-  :data:`Status.NO_SIGNAL`, :data:`Status.SINGLE_PIXEL`, :data:`Status.ROUND`;
-* warnings and fallbacks where the best available value is written instead: all other bits.
+* **failures** (:data:`FAILURE_BITS`): the event has no emission angle, or one the reconstruction itself declares
+  meaningless; it cannot take part in polarimetry. :data:`Status.MALFORMED_INPUT`, :data:`Status.NO_SIGNAL`,
+  :data:`Status.SINGLE_PIXEL`, :data:`Status.ROUND` (``emission_rad`` is NaN) and :data:`Status.TOO_FEW_PIXELS`
+  (an angle is computed, but from fewer pixels than ``min_pixels``, where the moments reflect the pixel shape);
+* **warnings** (:data:`WARNING_BITS`): a fallback or a caution; the emission angle is defined and usable, some other
+  value may be less precise (a truncated track, a saturated pulse height, a first-pass angle).
 
-``Status.NO_EMISSION`` is the union of the bits for which ``emission_rad`` is NaN; select events usable for
-polarimetry with ``(table["status"] & Status.NO_EMISSION) == 0`` (and stricter cuts as the analysis needs).
+The analysis keeps, by default, the events with an emission angle and no failure bit
+(:class:`trackfit.analysis.UsableEvents`); rejecting warning bits too is a separate, explicit choice.
+``Status.NO_EMISSION`` is the union of the bits for which ``emission_rad`` is NaN.
 
 Examples
 --------
@@ -24,7 +29,8 @@ import enum
 
 import numpy as np
 
-__all__ = ["Status", "explain_status", "STATUS_DOCS", "status_counts"]
+__all__ = ["Status", "explain_status", "STATUS_DOCS", "status_counts", "FAILURE_BITS", "WARNING_BITS", "BIT_KIND",
+           "BIT_RATIONALE"]
 
 
 class Status(enum.IntFlag):
@@ -73,6 +79,36 @@ STATUS_DOCS: dict[Status, str] = {
 }
 
 
+#: why each bit is a failure (the event cannot take part in polarimetry) or a warning (it can)
+BIT_RATIONALE: dict[Status, str] = {
+    Status.MALFORMED_INPUT: "nothing was reconstructed: no energy, position or angle",
+    Status.NO_SIGNAL: "nothing above threshold: no energy, position or angle",
+    Status.TOO_FEW_PIXELS: "the angle of a cluster below min_pixels follows the hexagonal pixel shape more than the "
+                           "track, which biases the modulation; the reconstruction settings declare it unreliable",
+    Status.SINGLE_PIXEL: "one pixel has no direction: no emission angle",
+    Status.ROUND: "isotropic charge has no principal axis: no emission angle",
+    Status.COLLINEAR: "the axis of pixels on one line is exact; every value is defined",
+    Status.NO_SKEWNESS: "the angle is the first-pass axis with an arbitrary sense; cos 2phi and sin 2phi do not "
+                        "depend on the sense, so the event still measures polarization (conversion point less "
+                        "precise)",
+    Status.NO_CONVERSION_PIXELS: "the angle is the first-pass axis (less precise than the second pass, still an "
+                                 "emission direction); the conversion point is the centroid",
+    Status.SECOND_PASS_FALLBACK: "the angle is the first-pass axis (less precise than the second pass, still an "
+                                 "emission direction)",
+    Status.ROI_BORDER: "the track may be truncated at the ROI edge (energy and angle may be biased for long "
+                       "tracks); the event is reconstructed, and rejecting it is a choice of the analysis",
+    Status.SATURATED: "the pulse height underestimates the energy; the angle is unaffected",
+}
+#: bits that exclude an event from polarimetry (see :data:`BIT_RATIONALE`)
+FAILURE_BITS = Status(Status.MALFORMED_INPUT | Status.NO_SIGNAL | Status.TOO_FEW_PIXELS | Status.SINGLE_PIXEL
+                      | Status.ROUND)
+#: bits after which the event is still usable; rejecting them is an explicit choice (``reject_warnings``)
+WARNING_BITS = Status(Status.COLLINEAR | Status.NO_SKEWNESS | Status.NO_CONVERSION_PIXELS
+                      | Status.SECOND_PASS_FALLBACK | Status.ROI_BORDER | Status.SATURATED)
+#: "failure" or "warning" for every bit
+BIT_KIND: dict[Status, str] = {bit: "failure" if bit & FAILURE_BITS else "warning" for bit in STATUS_DOCS}
+
+
 def explain_status(status: int) -> str:
     """One line per set bit explaining a status value, e.g. ``explain_status(table["status"][17])``."""
     status = int(status)
@@ -82,7 +118,7 @@ def explain_status(status: int) -> str:
     rest = status
     for bit, text in STATUS_DOCS.items():
         if status & bit:
-            lines.append(f"  {bit.name} (bit {int(bit).bit_length() - 1}): {text}")
+            lines.append(f"  {bit.name} (bit {int(bit).bit_length() - 1}, {BIT_KIND[bit]}): {text}")
             rest &= ~int(bit)
     if rest:
         lines.append(f"  unknown bits {rest:#x} (written by a newer trackfit?)")
