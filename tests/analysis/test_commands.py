@@ -86,7 +86,7 @@ def test_calibrate_then_polarization(runs, tmp_path, capsys):
     stokes = result["stokes"]
     assert abs(stokes["degree"] - 0.6) < 4 * stokes["degree_err"]
     assert abs(stokes["angle_deg"] + 45) < 4 * stokes["angle_err_deg"]
-    assert result["cut_flow"]["steps"][0]["cut"] == "status == 0"
+    assert result["cut_flow"]["steps"][0]["cut"] == "default: emission angle, no failure bit"
     assert len(result["energy_bands"]["bands"]) == 2
     assert (figures / "science_stokes_plane.png").exists()
 

@@ -51,3 +51,28 @@ def test_user_weights_follow_the_rows(table):
     assert weighted.stokes.q_err == pytest.approx(cut.stokes.q_err, rel=1e-9)
     with pytest.raises(ValueError, match="one value per table row"):
         measure_polarization(table, modulation_factor=0.4, weighting=np.ones(3))
+
+
+def test_share_of_the_spurious_map_error_is_reported():
+    # one map cell of error sigma_q holding every event, one modulation factor mu, no weights: the map adds
+    # 2 sigma_q / mu to the error of Q (each event contributes 2 (cos 2phi - Q_sp) / mu, Rankin et al. 2022; the
+    # map value is shared, so its error does not average out)
+    from trackfit.analysis import Calibration, ModulationFactorCurve, SpuriousMap
+
+    rng = np.random.default_rng(121)
+    n = 40_000
+    table = {"emission_rad": modulated_angles(rng, n, 0.2), "energy_kev": np.full(n, 5.0),
+             "conv_x_mm": rng.uniform(-1, 1, n), "conv_y_mm": rng.uniform(-1, 1, n),
+             "status": np.zeros(n, np.uint16)}
+    edges = np.array([-2.0, 2.0])
+    sigma = 0.004
+    spurious = SpuriousMap(energy_kev=np.array([5.0]), x_edges_mm=edges, y_edges_mm=edges, q=np.zeros((1, 1, 1)),
+                           u=np.zeros((1, 1, 1)), q_err=np.full((1, 1, 1), sigma), u_err=np.full((1, 1, 1), sigma),
+                           counts=np.full((1, 1, 1), 1e5))
+    curve = ModulationFactorCurve(coefficients=(0.4,), energy_range_kev=(5.0, 5.0))
+    m = measure_polarization(table, calibration=Calibration(spurious_modulation=spurious, modulation_factor=curve))
+    assert m.spurious_map_q_err == pytest.approx(2 * sigma / 0.4, rel=1e-6)
+    share_q, _ = m.spurious_map_variance_share
+    assert share_q == pytest.approx((2 * sigma / 0.4) ** 2 / m.stokes.q_err**2, rel=1e-6)
+    text = repr(m)
+    assert "of which spurious map" in text and f"{100 * share_q:.1f} %" in text

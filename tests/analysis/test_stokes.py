@@ -239,6 +239,30 @@ def test_result_prints_table():
     assert d["n_events"] == 1000 and "angle_deg" in d
 
 
+def test_angle_of_undetected_polarization_is_not_given_as_a_number():
+    # unpolarized events: below the 99 % detection level (P(unpolarized) >= 0.01, the level of the MDP99,
+    # Weisskopf et al. 2010) every angle is compatible, so no angle +- error is printed
+    rng = np.random.default_rng(14)
+    r = stokes_parameters(rng.uniform(-np.pi, np.pi, 2000), modulation_factor=0.3)
+    assert r.p_value_unpolarized >= 0.01 and not r.detected
+    angle_row = [line for line in repr(r).splitlines() if line.strip().startswith("angle")][0]
+    assert "undefined" in angle_row and "±" not in angle_row and "°" not in angle_row
+    assert r.to_dict()["detected"] is False
+    bands = stokes_in_bands(rng.uniform(-np.pi, np.pi, 2000), np.full(2000, 5.0), [4, 6], modulation_factor=0.3)
+    assert "undefined" in repr(bands)
+    strong = stokes_parameters(modulated_angles(rng, 20_000, 0.3, 0.4), modulation_factor=0.3)
+    assert strong.detected and "±" in [line for line in repr(strong).splitlines() if "angle" in line][0]
+
+
+def test_event_rows_say_what_they_count():
+    rng = np.random.default_rng(15)
+    phi = modulated_angles(rng, 5000, 0.2)
+    text = repr(stokes_parameters(phi, modulation_factor=0.3))
+    assert "events used" in text and "effective events" not in text  # unweighted: N_eff = N, not repeated
+    weighted = repr(stokes_parameters(phi, modulation_factor=0.3, weights=rng.uniform(0.2, 1.0, 5000)))
+    assert "effective events" in weighted and "(Σw)²/Σw²" in weighted
+
+
 # ------------------------------------------------------------------------------------------------------ Rice
 def test_rice_law_matches_scipy():
     # docs/methods.md section 4: p_hat of an unpolarized source is Rayleigh (Rice with p0 = 0): P(p_hat > x) =

@@ -46,7 +46,9 @@ def _version() -> str:
 
 
 def make_provenance(*, runs=(), cuts=None, weights="none", **extra) -> dict:
-    """Provenance of a calibration part: input runs, cuts (plain dict), weights, version, time."""
+    """Provenance of a calibration part: input runs, cuts (plain dict, :meth:`~trackfit.analysis.Cut.to_dict`),
+    weights, version, time, and any part-specific entries (e.g. ``selection``, the cuts as printed in a cut flow, and
+    ``cut_flows``, the cut flow of each input run)."""
     return {"runs": [str(r) for r in runs], "cuts": cuts, "weights": weights, "trackfit_version": _version(),
             "created_utc": now_utc(), **extra}
 
@@ -106,6 +108,23 @@ class Calibration:
     def parts(self) -> list[str]:
         """Names of the parts present."""
         return [name for name in _PARTS if getattr(self, name) is not None]
+
+    def selection_of(self, name: str):
+        """The selection part ``name`` was made with (a :class:`~trackfit.analysis.Cut`, from its provenance), or
+        None when the part is absent or its provenance records no cuts."""
+        from .selection import SelectionError, cut_from_dict
+
+        cuts = self.provenance.get(name, {}).get("cuts") if getattr(self, name, None) is not None else None
+        if not cuts:
+            return None
+        try:
+            return cut_from_dict(cuts)
+        except SelectionError:
+            return None
+
+    def weights_of(self, name: str) -> str | None:
+        """The per-event weighting part ``name`` was made with (None when not recorded)."""
+        return self.provenance.get(name, {}).get("weights") if getattr(self, name, None) is not None else None
 
     def with_part(self, name: str, value, provenance: Mapping | None = None) -> Calibration:
         """A copy with part ``name`` set (and its provenance)."""
@@ -220,19 +239,25 @@ class Calibration:
                 continue
             prov = self.provenance.get(name, {})
             runs = ", ".join(Path(r).name for r in prov.get("runs", [])) or "?"
-            rows.append((name, repr(part).splitlines()[0], f"runs: {runs}; weights: {prov.get('weights', '?')}"))
+            text = f"runs: {runs}; weights: {prov.get('weights', '?')}"
+            selection = prov.get("selection")
+            if selection is None and self.selection_of(name) is not None:
+                selection = self.selection_of(name).describe()
+            if selection is not None:
+                text += f"\nselection: {selection}"
+            rows.append((name, repr(part).splitlines()[0], text))
         return rows
 
     def __repr__(self):
         lines = ["Calibration"]
         for name, summary, prov in self._rows():
             lines.append(f"  {name:<20}{summary}")
-            if prov:
-                lines.append(f"  {'':<20}{prov}")
+            lines += [f"  {'':<20}{line}" for line in prov.splitlines()]
         return "\n".join(lines)
 
     def _repr_html_(self):
-        body = "".join(f"<tr><td>{html.escape(a)}</td><td>{html.escape(b)}</td><td>{html.escape(c)}</td></tr>"
+        body = "".join(f"<tr><td>{html.escape(a)}</td><td>{html.escape(b)}</td>"
+                       f"<td>{'<br>'.join(html.escape(line) for line in c.splitlines())}</td></tr>"
                        for a, b, c in self._rows())
         return f"<table><caption>Calibration</caption>{body}</table>"
 

@@ -8,14 +8,25 @@ defaults fit, and the pieces (:mod:`~trackfit.analysis.selection`, :class:`~trac
 from __future__ import annotations
 
 import html
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .calfile import Calibration
+from .fitquality import warn_if_poor
 from .modulation import ModulationFit, modulation_curve
-from .selection import Cut, CutFlow, EnergyWindow, Everything, select_rows
+from .selection import (
+    Cut,
+    CutFlow,
+    EnergyWindow,
+    NoEventsLeftError,
+    SelectionMismatchWarning,
+    select_rows,
+    warn_if_selections_differ,
+    with_default,
+)
 from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights, stokes_sums
 
 __all__ = ["PolarizationMeasurement", "measure_polarization", "event_weights", "WEIGHTINGS"]
@@ -58,7 +69,8 @@ class PolarizationMeasurement:
         :class:`~trackfit.analysis.StokesResult`). Its most used values are also attributes of the measurement
         itself (read-only shortcuts, table below).
     cut_flow : CutFlow
-        Events kept and removed by each cut of the selection.
+        Events kept and removed by each cut of the selection; the default selection (an emission angle and no
+        failure bit) is its first step.
     modulation : ModulationFit or None
         Binned fit of the modulation curve of the selected events (a cross-check and a figure).
     bands : StokesBands or None
@@ -70,6 +82,9 @@ class PolarizationMeasurement:
     degree_calibration_err : float
         ``degree * modulation_factor_rel_err``: scale error of the degree from the calibration, common to every run
         analysed with it (not included in ``degree_err``).
+    spurious_map_q_err, spurious_map_u_err : float
+        The part of ``q_err`` and ``u_err`` (added in quadrature) that comes from the statistical errors of the
+        subtracted spurious-modulation map (0 without a map); ``spurious_map_variance_share`` gives its share.
     settings : dict
         Selection, weighting, calibration parts and fit settings used (what the JSON output records).
 
@@ -87,6 +102,7 @@ class PolarizationMeasurement:
     ``angle_err_rad``
     ``mdp99``                   minimum detectable polarization at 99 % for these events (0 to 1)
     ``p_value_unpolarized``     probability of a degree at least this large from unpolarized light
+    ``detected``                ``p_value_unpolarized < 0.01``: below, the angle is undefined (any angle fits)
     ``n_events``, ``n_eff``     events used and effective events ``(sum w)^2 / sum w^2``
     ``modulation_factor``       effective modulation factor of the events
     ==========================  ===========================================================================
@@ -98,6 +114,8 @@ class PolarizationMeasurement:
     bands: StokesBands | None = None
     background_cut_flow: CutFlow | None = None
     modulation_factor_rel_err: float = 0.0
+    spurious_map_q_err: float = 0.0
+    spurious_map_u_err: float = 0.0
     settings: dict = field(default_factory=dict)
 
     # read-only shortcuts to the Stokes result (documented in the table of the class docstring)
@@ -115,20 +133,31 @@ class PolarizationMeasurement:
     angle_err_rad = _from_stokes("angle_err_rad", "Error of the angle in radians")
     mdp99 = _from_stokes("mdp99", "Minimum detectable polarization at 99 %, 0 to 1")
     p_value_unpolarized = _from_stokes("p_value_unpolarized", "Probability of this degree from unpolarized light")
+    detected = _from_stokes("detected", "Polarization detected at 99 %; below it the angle is undefined")
     n_events = _from_stokes("n_events", "Events used")
     n_eff = _from_stokes("n_eff", "Effective number of events")
     modulation_factor = _from_stokes("modulation_factor", "Effective modulation factor of the events")
 
     @property
     def degree_calibration_err(self) -> float:
-        """Scale uncertainty of the degree from the modulation-factor calibration (``p sigma_mu / mu``; not
-        included in ``stokes.degree_err``, common to all runs analysed with the same calibration)."""
+        """Scale uncertainty of the degree from the modulation-factor calibration (``p sigma_mu / mu``, in units
+        of the degree; not included in ``stokes.degree_err``, common to all runs analysed with the same
+        calibration)."""
         return self.stokes.degree * self.modulation_factor_rel_err
+
+    @property
+    def spurious_map_variance_share(self) -> tuple[float, float]:
+        """Fractions of the variances of Q and U that come from the spurious-map errors."""
+        s = self.stokes
+        share_q = (self.spurious_map_q_err / s.q_err) ** 2 if s.q_err > 0 else 0.0
+        share_u = (self.spurious_map_u_err / s.u_err) ** 2 if s.u_err > 0 else 0.0
+        return float(share_q), float(share_u)
 
     def to_dict(self) -> dict:
         out = {"stokes": self.stokes.to_dict(), "cut_flow": self.cut_flow.to_dict(), "settings": self.settings,
                "modulation_factor_rel_err": self.modulation_factor_rel_err,
-               "degree_calibration_err": self.degree_calibration_err}
+               "degree_calibration_err": self.degree_calibration_err,
+               "spurious_map_q_err": self.spurious_map_q_err, "spurious_map_u_err": self.spurious_map_u_err}
         if self.modulation is not None:
             m = self.modulation
             out["modulation_curve"] = {"modulation": m.modulation, "modulation_err": m.modulation_err,
@@ -143,9 +172,15 @@ class PolarizationMeasurement:
 
     def __repr__(self):
         parts = [repr(self.stokes)]
+        if self.spurious_map_q_err > 0 or self.spurious_map_u_err > 0:
+            share_q, share_u = self.spurious_map_variance_share
+            parts.append(f"  {'of which spurious map':<24}Q ± {self.spurious_map_q_err:.5f}, U ± "
+                         f"{self.spurious_map_u_err:.5f} ({100 * share_q:.1f} % and {100 * share_u:.1f} % of the "
+                         "variances: the map's statistical errors)")
         if self.modulation_factor_rel_err > 0:
-            parts.append(f"  {'degree calibration err':<24}± {100 * self.degree_calibration_err:.2f} % "
-                         f"(modulation factor known to {100 * self.modulation_factor_rel_err:.1f} %)")
+            parts.append(f"  {'degree scale error':<24}± {100 * self.degree_calibration_err:.2f} percentage points "
+                         f"(the modulation factor is known to ± {100 * self.modulation_factor_rel_err:.1f} % of "
+                         "its value; not in the errors above)")
         parts += ["", "Cut flow", str(self.cut_flow)]
         if self.background_cut_flow is not None:
             parts += ["", "Background cut flow", str(self.background_cut_flow)]
@@ -212,7 +247,10 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
     table : mapping of column arrays
         An event table (``emission_rad`` and whatever the selection and calibration need).
     selection : Cut, optional
-        Source events (default: all).
+        Cuts on the source events, added to the default selection (:class:`~trackfit.analysis.UsableEvents`: an
+        emission angle and no failure bit), which is the first step of the cut flow. With a calibration, a
+        warning (:class:`~trackfit.analysis.SelectionMismatchWarning`) says when its status and track-shape cuts
+        or its weights differ from those the calibration's modulation factor or spurious map was made with.
     calibration : Calibration, optional
         Applied before the selection (so energy cuts use calibrated energies); its modulation-factor curve
         and spurious map are used per event, and the statistical errors of the spurious map are added to the
@@ -223,8 +261,9 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Per-event weights (Di Marco et al. 2022), or one weight per table row; the modulation factor must be
         measured with the same weights.
     background_selection : Cut, optional
-        Off-source events, taken from ``background_table`` (default: the same table), subtracted with
-        ``background_scale`` = (area x time on) / (area x time off) (required with a background).
+        Off-source events (added to the default selection), taken from ``background_table`` (default: the same
+        table), subtracted with ``background_scale`` = (area x time on) / (area x time off) (required with a
+        background).
     energy_bands_kev : array_like, optional
         Band edges for a per-band table (each band with its own background subtraction and map errors).
     n_bins : int
@@ -233,8 +272,13 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Apply the calibration's gain drift (only for the run it was measured on).
     confidence_level : float
         Level of the Rice interval of the degree.
+
+    Raises
+    ------
+    NoEventsLeftError
+        No source event passes the selection (the message shows the cut flow).
     """
-    selection = selection if selection is not None else Everything()
+    selection = with_default(selection)
     if not isinstance(weighting, str) and weighting is not None:  # per-row weights travel with the rows
         w = np.asarray(weighting, dtype=float)
         n_rows = len(table["emission_rad"])
@@ -246,13 +290,20 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         table = dict(table, user_weight=w)
         weighting = "user_weight"
     events, flow = _prepared(table, calibration, selection, use_gain_drift)
+    if flow.n_kept == 0:
+        raise NoEventsLeftError("in the run", flow)
+    _check_against_calibration(selection, weighting, calibration, modulation_factor)
     sums, mu, weights, spurious = _sums(events, calibration, modulation_factor, weighting)
     background_flow = off_events = None
     if background_selection is not None or background_table is not None:
         if background_scale is None:
             raise ValueError("a background needs background_scale = (area x time on) / (area x time off)")
         off_table = background_table if background_table is not None else table
-        off_selection = background_selection if background_selection is not None else Everything()
+        off_selection = with_default(background_selection)
+        warn_if_selections_differ(off_selection, selection, what="the background selection",
+                                  reference_name="the source selection",
+                                  reason="A background is subtracted correctly only when its events pass the same "
+                                  "status and track-shape cuts as the source events")
         off_events, background_flow = _prepared(off_table, calibration, off_selection, use_gain_drift)
         sums = sums.subtract(_sums(off_events, calibration, modulation_factor, weighting)[0], background_scale)
     result = StokesResult.from_sums(sums, confidence_level=confidence_level)
@@ -288,11 +339,39 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
             mu_rel_err = float(np.average(rel, weights=w[good]))
     phi = np.asarray(events["emission_rad"], dtype=float)
     modulation = modulation_curve(phi, n_bins=n_bins, weights=weights) if np.isfinite(phi).sum() >= 2 else None
+    if modulation is not None and np.isfinite(phi).sum() >= 5 * n_bins:  # chi-square law: >= 5 events per bin
+        warn_if_poor(modulation.quality, f"the modulation curve A + B cos²(φ − φ0) ({n_bins} bins)",
+                     advice="the angles hold structure other than cos 2φ, e.g. the 60° pattern of the pixel grid; "
+                     "the Stokes result does not assume the curve's shape")
     settings = {"selection": selection.to_dict(), "weighting": weighting if isinstance(weighting, str) else "array",
                 "modulation_factor": modulation_factor, "calibration_parts": calibration.parts() if calibration
                 else [], "background_selection": None if background_selection is None
                 else background_selection.to_dict(), "background_scale": background_scale, "n_bins": n_bins,
                 "confidence_level": confidence_level}
+    map_q_err = float(np.sqrt(max(sums.extra_var_q, 0.0)) / sums.i)
+    map_u_err = float(np.sqrt(max(sums.extra_var_u, 0.0)) / sums.i)
     return PolarizationMeasurement(stokes=result, cut_flow=flow, modulation=modulation, bands=bands,
                                    background_cut_flow=background_flow, modulation_factor_rel_err=mu_rel_err,
-                                   settings=settings)
+                                   spurious_map_q_err=map_q_err, spurious_map_u_err=map_u_err, settings=settings)
+
+
+def _check_against_calibration(selection, weighting, calibration, modulation_factor):
+    """Warn when the selection or weights differ from those of the calibration parts that are used."""
+    if calibration is None:
+        return
+    used = [name for name in ("modulation_factor", "spurious_modulation") if getattr(calibration, name) is not None
+            and not (name == "modulation_factor" and modulation_factor is not None)]
+    seen = set()
+    for name in used:
+        reference = calibration.selection_of(name)
+        if reference is not None and repr(reference.to_dict()) not in seen:
+            seen.add(repr(reference.to_dict()))
+            warn_if_selections_differ(selection, reference, what="this measurement",
+                                      reference_name=f"the calibration's {name.replace('_', ' ')}", stacklevel=4)
+        made_with = calibration.weights_of(name)
+        weights = "none" if weighting is None else weighting  # per-row arrays arrive as "user_weight": not compared
+        if made_with is not None and weights != "user_weight" and made_with != weights:
+            warnings.warn(SelectionMismatchWarning(
+                f"the calibration's {name.replace('_', ' ')} was made with weights '{made_with}', this measurement "
+                f"uses '{weights}': measure the modulation factor and spurious map with the weights of the analysis "
+                "(Di Marco et al. 2022)"), stacklevel=3)

@@ -33,6 +33,7 @@ from scipy import optimize, stats
 
 __all__ = [
     "MDP99_CONSTANT",
+    "DETECTION_P_VALUE",
     "ONE_SIGMA_LEVEL",
     "StokesSums",
     "StokesResult",
@@ -47,6 +48,9 @@ __all__ = [
 
 #: ``sqrt(-2 ln 0.01) * sqrt(2)`` = 4.29193 (Weisskopf et al. 2010)
 MDP99_CONSTANT = float(np.sqrt(-2.0 * np.log(0.01)) * np.sqrt(2.0))
+#: a polarization is detected when unpolarized light gives a degree at least as large with a smaller probability
+#: (the 99 % level of the MDP99; Weisskopf et al. 2010); below it the angle is undefined
+DETECTION_P_VALUE = 0.01
 #: probability content of +-1 sigma of a Gaussian, 0.6827
 ONE_SIGMA_LEVEL = float(stats.norm.cdf(1.0) - stats.norm.cdf(-1.0))
 
@@ -226,7 +230,8 @@ class StokesResult:
     degree, degree_err : float
         ``p_hat = sqrt(q^2 + u^2)`` (biased high at low counts: see ``degree_low``/``degree_high``) and its error.
     angle_rad, angle_err_rad : float
-        ``psi_hat = atan2(u, q) / 2`` in (-pi/2, pi/2] and its error (NaN when ``degree == 0``).
+        ``psi_hat = atan2(u, q) / 2`` in (-pi/2, pi/2] and its error (NaN when ``degree == 0``); meaningful only
+        when :attr:`detected` (the linear error is then valid; below it every angle is compatible).
     angle_deg, angle_err_deg : float
         The same in degrees (read-only properties).
     degree_low, degree_high : float
@@ -279,8 +284,12 @@ class StokesResult:
                   label: str = "") -> StokesResult:
         """Evaluate the sums (see the module docstring)."""
         if not sums.i > 0:
-            raise ValueError(f"no signal: the sum of weights after background subtraction is {sums.i:g} "
-                             f"({sums.n_events} events, {sums.n_background} background events)")
+            if sums.n_background or sums.background_scale:
+                raise ValueError(f"no signal: the sum of weights after background subtraction is {sums.i:g} "
+                                 f"({sums.n_events} source events, {sums.n_background} background events scaled "
+                                 f"by {sums.background_scale:g})")
+            raise ValueError(f"no events to measure: the sum of weights is {sums.i:g} ({sums.n_events} events with an "
+                             "emission angle)")
         i = sums.i
         q, u = sums.q / i, sums.u / i
         var_q = max((sums.qq - 2 * q * sums.qi + q * q * sums.w2 + sums.extra_var_q) / i**2, 0.0)
@@ -318,6 +327,12 @@ class StokesResult:
                    n_background=int(sums.n_background), background_scale=float(sums.background_scale), label=label)
 
     @property
+    def detected(self) -> bool:
+        """Whether a polarization is detected at 99 % (``p_value_unpolarized < 0.01``); below that the angle is
+        undefined: every angle is compatible with the data."""
+        return bool(self.p_value_unpolarized < DETECTION_P_VALUE)
+
+    @property
     def angle_deg(self) -> float:
         return float(np.rad2deg(self.angle_rad))
 
@@ -330,6 +345,7 @@ class StokesResult:
         out = asdict(self)
         out["angle_deg"] = self.angle_deg
         out["angle_err_deg"] = self.angle_err_deg
+        out["detected"] = self.detected
         return {k: (None if isinstance(v, float) and not np.isfinite(v) else v) for k, v in out.items()}
 
     def _rows(self):
@@ -339,11 +355,14 @@ class StokesResult:
                 ("U (normalized)", f"{self.u:+.5f} ± {self.u_err:.5f}"),
                 ("degree", f"{pct * self.degree:.2f} % ± {pct * self.degree_err:.2f} %"),
                 (f"degree {cl} interval", f"[{pct * self.degree_low:.2f} %, {pct * self.degree_high:.2f} %]"),
-                ("angle", f"{self.angle_deg:+.2f}° ± {self.angle_err_deg:.2f}°"),
+                ("angle", f"{self.angle_deg:+.2f}° ± {self.angle_err_deg:.2f}°" if self.detected else
+                 "undefined: no polarization detected at 99 % (every angle is compatible)"),
                 ("MDP99", f"{pct * self.mdp99:.2f} %"),
                 ("P(unpolarized)", f"{self.p_value_unpolarized:.3g}"),
-                ("events (effective)", f"{self.n_events} ({self.n_eff:.6g})"),
-                ("modulation factor", f"{self.modulation_factor:.4f}")]
+                ("events used", f"{self.n_events}")]
+        if abs(self.n_eff - self.n_events) > 0.5:
+            rows.append(("effective events", f"{self.n_eff:.6g} = (Σw)²/Σw² (weights, background)"))
+        rows.append(("modulation factor", f"{self.modulation_factor:.4f} (effective, of the events used)"))
         if self.n_background:
             rows.append(("background", f"{self.n_background} events × {self.background_scale:.4g}"))
         return rows
@@ -416,9 +435,9 @@ class StokesBands:
             if r is None:
                 rows.append((band, "0", "-", "-", "-", "-"))
             else:
-                rows.append((band, f"{r.n_events}", f"{100 * r.degree:.2f} ± {100 * r.degree_err:.2f}",
-                             f"{r.angle_deg:+.1f} ± {r.angle_err_deg:.1f}", f"{100 * r.mdp99:.2f}",
-                             f"{r.modulation_factor:.3f}"))
+                angle = f"{r.angle_deg:+.1f} ± {r.angle_err_deg:.1f}" if r.detected else "undefined"
+                rows.append((band, f"{r.n_events}", f"{100 * r.degree:.2f} ± {100 * r.degree_err:.2f}", angle,
+                             f"{100 * r.mdp99:.2f}", f"{r.modulation_factor:.3f}"))
         return rows
 
     _HEAD = ("E (keV)", "events", "degree (%)", "angle (°)", "MDP99 (%)", "μ")
