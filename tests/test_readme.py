@@ -73,11 +73,11 @@ def test_python_example_runs(main_job, tmp_path, monkeypatch, capsys):
 
 def test_result_shortcuts_are_the_stokes_values(main_job):
     # every shortcut the README and the PolarizationMeasurement docstring list is the StokesResult's value
-    from trackfit.analysis import Calibration, PolarizationMeasurement, StatusCut, measure_polarization
+    from trackfit.analysis import Calibration, PolarizationMeasurement, measure_polarization
 
     out, _ = main_job
     table = trackfit.read_table(out / "pol100_5p9kev_120deg_short_events.h5")
-    result = measure_polarization(table, calibration=Calibration.load(out / "calibration.h5"), selection=StatusCut())
+    result = measure_polarization(table, calibration=Calibration.load(out / "calibration.h5"))
     table_rows = re.findall(r"^    (``\w+``[^\n]*)", PolarizationMeasurement.__doc__, flags=re.M)
     names = {n for row in table_rows for n in re.findall(r"``(\w+)``", row)}
     readme = (ROOT / "README.md").read_text()

@@ -60,7 +60,7 @@ def test_calibrate_then_polarization(runs, tmp_path, capsys):
     assert main(["calibrate", "-o", str(cal_path), "--flat-field", str(runs["flat"]), "--unpolarized",
                  str(runs["flat"]), "--polarized", f"{runs['pol4']},angle_deg=0", "--polarized",
                  f"{runs['pol6']},angle_deg=30", "--gain-cell-mm", "2", "--spurious-cell-mm", "8",
-                 "--status-ok", "--figures", str(figures)]) == 0
+                 "--figures", str(figures)]) == 0
     out = capsys.readouterr().out
     assert "modulation factor pol6.h5" in out and "wrote" in out
     cal = Calibration.load(cal_path)
@@ -78,7 +78,7 @@ def test_calibrate_then_polarization(runs, tmp_path, capsys):
                                                       "flat_field_spectrum.png"}
 
     result_path = tmp_path / "result.json"
-    assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--status-ok", "--energy-kev", "3",
+    assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--energy-kev", "3",
                  "8", "--json", str(result_path), "--bands", "3", "5", "8", "--figures", str(figures)]) == 0
     printed = capsys.readouterr().out
     assert "degree" in printed and "MDP99" in printed and "Cut flow" in printed
@@ -126,7 +126,10 @@ def test_provenance_names_inputs(runs, tmp_path):
     assert main(["calibrate", "-o", str(cal_path), "--flat-field", str(runs["flat"]), "--gain-cell-mm", "4"]) == 0
     prov = Calibration.load(cal_path).provenance["gain_map"]
     assert prov["inputs"][0]["label"] == "flat.h5" and prov["inputs"][0]["n_rows"] == 20_000
-    assert prov["cuts"] == {"cut": "StatusCut", "allowed_bits": 0}  # the default flat-field selection
+    # the default selection, recorded as cuts and as the text of the cut flow
+    assert prov["cuts"] == {"cut": "AllOf", "parts": [{"cut": "UsableEvents", "reject_warnings": False}]}
+    assert prov["selection"] == "default: emission angle, no failure bit"
+    assert prov["cut_flows"]["flat.h5"]["steps"][0]["kept"] < 20_000  # the toy's TOO_FEW_PIXELS events removed
     out = tmp_path / "r.json"
     assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--modulation-factor", "0.4",
                  "--json", str(out)]) == 0
@@ -153,3 +156,62 @@ def test_lines_drift_and_update(runs, tmp_path):
     updated = Calibration.load(second)
     assert updated.parts() == ["energy_scale", "gain_map", "gain_drift", "modulation_factor"]
     assert updated.energy_scale == scale
+
+
+def test_same_selection_in_both_steps_or_a_warning(runs, tmp_path, capsys):
+    cal_path = tmp_path / "cal.h5"
+    assert main(["calibrate", "-o", str(cal_path), "--polarized", f"{runs['pol6']},angle_deg=30",
+                 "--reject-warnings", "--min-elongation", "1.6"]) == 0
+    out = capsys.readouterr().out
+    assert "Cut flow of polarized run pol6.h5" in out
+    assert "default: emission angle, no failure or warning bit" in out and "elongation >= 1.6" in out
+    # the same status and track-shape cuts (and an energy window): no warning
+    assert main(["polarization", str(runs["science"]), "-c", str(cal_path), "--reject-warnings",
+                 "--min-elongation", "1.6", "--energy-kev", "5", "10"]) == 0
+    captured = capsys.readouterr()
+    assert "warning" not in captured.err and "default: emission angle, no failure or warning bit" in captured.out
+    # the default selection alone differs from the calibration's: said on stderr, the result still printed
+    assert main(["polarization", str(runs["science"]), "-c", str(cal_path)]) == 0
+    captured = capsys.readouterr()
+    assert "trackfit polarization: warning:" in captured.err and "'elongation >= 1.6'" in captured.err
+    assert "Stokes parameters" in captured.out
+
+
+def test_no_events_left_shows_the_cut_flow(runs, capsys):
+    assert main(["polarization", str(runs["science"]), "--modulation-factor", "0.4", "--energy-kev", "50",
+                 "60"]) == 2
+    err = capsys.readouterr().err
+    assert "no events left in the run after the selection" in err
+    assert "default: emission angle, no failure bit" in err and "50 <= energy_kev < 60 keV" in err
+    assert "background" not in err
+
+
+def test_help_states_the_default_selection(capsys):
+    for command in ("calibrate", "polarization"):
+        with pytest.raises(SystemExit):
+            main([command, "--help"])
+        text = " ".join(capsys.readouterr().out.split())
+        assert "Default selection, always applied first: events with an emission angle and no failure" in text
+        assert "--reject-warnings" in text
+
+
+def test_calibrate_errors_name_the_flags(runs, tmp_path, capsys):
+    assert main(["calibrate", "-o", str(tmp_path / "c.h5"), "--flat-field", str(runs["flat"]), "--gain-cell-mm",
+                 "0.2"]) == 2
+    err = capsys.readouterr().err
+    assert "--gain-cell-mm" in err and "--gain-min-counts" in err and "gain_cell_mm" not in err
+
+
+def test_calibrate_warns_on_a_poor_line_fit(tmp_path, capsys):
+    # a flat field of two unresolved lines given as one Gaussian line: the fit is poor and says so
+    rng = np.random.default_rng(112)
+    table = make_table(rng, 20_000, energy_kev=8.0)
+    ph = ADC_PER_KEV * 8.0 * (1 + 0.03 * rng.standard_normal(20_000))  # 3 % rms lines 12 % apart
+    ph[::2] *= 1.12
+    table["pulse_height"] = ph.astype(np.float32)
+    path = write_table(tmp_path / "double.h5", table)
+    assert main(["calibrate", "-o", str(tmp_path / "c.h5"), "--flat-field", f"{path},energy_kev=8",
+                 "--gain-cell-mm", "20"]) == 0
+    captured = capsys.readouterr()
+    assert "trackfit calibrate: warning: poor fit of the flat-field line at 8 keV" in captured.err
+    assert "POOR" in captured.out

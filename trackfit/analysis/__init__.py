@@ -21,8 +21,9 @@ What to use when
   any event table; :func:`build_calibration` makes one from calibration runs (``trackfit calibrate``);
   :func:`measure_polarization` does selection + calibration + Stokes on a table in one call
   (``trackfit polarization``). :func:`bragg_mosaic_polarization` gives the degree of a Bragg-reflected beam.
-* Fit quality: every fit reports its goodness of fit (``fit.quality``, :mod:`~trackfit.analysis.fitquality`);
-  :class:`FitQualityWarning` says when one is poor.
+* Fit quality: every fit reports its goodness of fit (``fit.quality``); poor fits raise a
+  :class:`FitQualityWarning` in :func:`build_calibration` and :func:`measure_polarization`
+  (:mod:`~trackfit.analysis.fitquality`).
 * Figures: :mod:`trackfit.analysis.figures` (matplotlib, imported lazily).
 """
 

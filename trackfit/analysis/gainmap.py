@@ -13,13 +13,48 @@ from __future__ import annotations
 
 import html
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
+from .fitquality import FitQuality, combined_quality
 from .spectrum import LineFit, fit_fe55, fit_line
-from .spurious import _cell_index
+from .spurious import _cell_index, centred_cell_edges
 
-__all__ = ["GainMap", "fit_gain_map", "grouped_peaks"]
+__all__ = ["GainMap", "fit_gain_map", "grouped_peaks", "GroupedPeaks", "GainCellError", "choose_gain_cell_mm",
+           "GAIN_CELL_CANDIDATES_MM"]
+
+#: cell sizes tried by :func:`choose_gain_cell_mm`, smallest first
+GAIN_CELL_CANDIDATES_MM = (0.5, 1.0, 2.0, 2.5, 5.0, 10.0, 20.0, 50.0)
+
+
+class GainCellError(ValueError):
+    """No cell of a gain map holds enough events for a line fit.
+
+    Attributes
+    ----------
+    cell_mm : float
+        The cell size tried.
+    min_counts, fullest, n_events : int
+        The minimum asked for, the events in the fullest cell, and all events inside the map.
+    suggested_cell_mm : float or None
+        The smallest cell size of :data:`GAIN_CELL_CANDIDATES_MM` that would work, if any.
+    """
+
+    def __init__(self, message, *, cell_mm, min_counts, fullest, n_events, suggested_cell_mm):
+        super().__init__(message)
+        self.cell_mm, self.min_counts, self.fullest = cell_mm, min_counts, fullest
+        self.n_events, self.suggested_cell_mm = n_events, suggested_cell_mm
+
+
+class GroupedPeaks(NamedTuple):
+    """Result of :func:`grouped_peaks`: one entry per group (NaN where the fit failed) and the global fit."""
+
+    peaks: np.ndarray
+    errors: np.ndarray
+    global_fit: LineFit
+    deviance: np.ndarray
+    ndof: np.ndarray
 
 #: K-beta/K-alpha count ratio assumed in the first pass (emission ratio 2.85/24.4 = 0.117 times a lower
 #: detection efficiency at 6.5 keV; common practice, refined by the global fit of the second pass)
@@ -36,16 +71,18 @@ def grouped_peaks(pulse_height, groups, *, line: str = "fe55", bins: int = 60, f
 
     Returns
     -------
-    peaks, errors : ndarray, shape (len(groups),)
-    global_fit : LineFit
-        Fit of all grouped events after the pass-1 correction to the median group; its peak (about the median
-        group peak) is the reference of relative gains.
+    GroupedPeaks
+        ``peaks, errors`` (shape ``(len(groups),)``), ``global_fit`` (the fit of all grouped events after the
+        pass-1 correction to the median group; its peak, about the median group peak, is the reference of relative
+        gains) and the ``deviance`` and ``ndof`` of each group's final fit (goodness of fit).
     """
     ph = np.asarray(pulse_height, dtype=float)
 
     def fit_all(kbeta, resolution):
         peaks = np.full(len(groups), np.nan)
         errors = np.full(len(groups), np.nan)
+        deviance = np.full(len(groups), np.nan)
+        ndof = np.zeros(len(groups))
         for k, idx in enumerate(groups):
             if line == "fe55":
                 fit = fit_fe55(ph[idx], bins=bins, range=fit_range, kbeta_fraction=kbeta,
@@ -54,20 +91,24 @@ def grouped_peaks(pulse_height, groups, *, line: str = "fe55", bins: int = 60, f
                 fit = fit_line(ph[idx], bins=bins, range=fit_range, start_resolution=resolution)
             if fit.success and np.isfinite(fit.peak_err) and fit.peak_err > 0:
                 peaks[k], errors[k] = fit.peak, fit.peak_err
-        return peaks, errors
+                deviance[k], ndof[k] = fit.deviance, fit.ndof
+        return peaks, errors, deviance, ndof
 
-    peaks, errors = fit_all(NOMINAL_KBETA_FRACTION, 0.2)
+    peaks, errors, deviance, ndof = fit_all(NOMINAL_KBETA_FRACTION, 0.2)
     ok = np.isfinite(peaks)
     if not ok.any():
-        raise ValueError(f"no group gave a {line} peak in the range {fit_range} ({len(groups)} groups)")
+        raise ValueError(f"none of the {len(groups)} groups gave a {line} peak in the pulse-height range "
+                         f"{fit_range[0]:.5g}–{fit_range[1]:.5g}" + (" (is the line an Fe-55 source? give the line "
+                                                                    "energy to fit a single Gaussian line)"
+                                                                    if line == "fe55" else ""))
     scale = np.median(peaks[ok])
     corrected = np.concatenate([ph[idx] * scale / peaks[k] for k, idx in enumerate(groups) if ok[k]])
     fitter = fit_fe55 if line == "fe55" else fit_line
     global_fit = fitter(corrected, bins=2 * bins, range=fit_range)
     if line == "fe55":
         kbeta = global_fit.counts_kbeta / max(global_fit.counts, 1e-12)
-        peaks, errors = fit_all(kbeta, global_fit.fwhm_frac)
-    return peaks, errors, global_fit
+        peaks, errors, deviance, ndof = fit_all(kbeta, global_fit.fwhm_frac)
+    return GroupedPeaks(peaks, errors, global_fit, deviance, ndof)
 
 
 
@@ -103,6 +144,8 @@ class GainMap:
     line: str = "fe55"
     position: str = "centroid"
     global_fit: LineFit | None = field(default=None, repr=False, compare=False)
+    cell_deviance: np.ndarray | None = field(default=None, repr=False, compare=False)
+    cell_ndof: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     def __post_init__(self):
         shape = (len(self.x_edges_mm) - 1, len(self.y_edges_mm) - 1)
@@ -123,6 +166,35 @@ class GainMap:
     @property
     def n_measured(self) -> int:
         return int(np.count_nonzero(np.isfinite(self.relative_gain)))
+
+    @property
+    def quality(self) -> FitQuality | None:
+        """Goodness of the cell fits taken together (summed deviance against summed ndof); None for a map read
+        from a file (the per-cell statistics are not stored)."""
+        if self.cell_deviance is None or self.cell_ndof is None:
+            return None
+        return combined_quality(self.cell_deviance, self.cell_ndof)
+
+    @property
+    def n_poor_cells(self) -> int:
+        """Cells whose own fit is poor (:mod:`trackfit.analysis.fitquality`); 0 without per-cell statistics."""
+        if self.cell_deviance is None or self.cell_ndof is None:
+            return 0
+        from .fitquality import fit_quality
+
+        return sum(fit_quality(d, n).poor for d, n in zip(np.ravel(self.cell_deviance), np.ravel(self.cell_ndof),
+                                                         strict=True) if np.isfinite(d) and n > 0)
+
+    def uniformity(self) -> FitQuality:
+        """Chi-square of the measured relative gains about their weighted mean (are the cells' differences more
+        than their errors?), against ``cells - 1``."""
+        g = self.relative_gain[np.isfinite(self.relative_gain)]
+        e = self.relative_gain_err[np.isfinite(self.relative_gain)]
+        if g.size < 2:
+            return FitQuality(statistic=0.0, ndof=0, name="chi2")
+        w = 1.0 / e**2
+        mean = float(np.sum(w * g) / np.sum(w))
+        return FitQuality(statistic=float(np.sum(w * (g - mean) ** 2)), ndof=int(g.size - 1), name="chi2")
 
     def gain_at(self, x_mm, y_mm) -> np.ndarray:
         """Relative gain at each position (1 for unmeasured cells, NaN positions and outside the map)."""
@@ -145,7 +217,11 @@ class GainMap:
         nx, ny = self.relative_gain.shape
         spread = (f"relative gain {g.min():.3f}–{g.max():.3f} (rms {g.std():.3f}), median error {np.median(e):.4f}"
                   if g.size else "no cell measured")
-        return (f"GainMap: {nx} x {ny} cells of {np.diff(self.x_edges_mm).mean():.3g} mm, {self.n_measured} measured "
+        quality = self.quality
+        if quality is not None and quality.ndof > 0:
+            spread += f"; cell fits {quality}" + (f", {self.n_poor_cells} poor cell(s)" if self.n_poor_cells else "")
+        cell = np.median(np.diff(self.x_edges_mm))
+        return (f"GainMap: {nx} x {ny} cells of {cell:.3g} mm, {self.n_measured} measured "
                 f"(>= {self.min_counts} events); reference peak {self.reference_peak:.5g}; {spread}")
 
     def _repr_html_(self):
@@ -197,13 +273,53 @@ def fit_gain_map(x_mm, y_mm, pulse_height, *, x_edges_mm, y_edges_mm, min_counts
     order = np.argsort(flat, kind="stable")
     starts = np.searchsorted(flat[order], np.arange(shape[0] * shape[1] + 1))
     cells = np.flatnonzero(counts.ravel() >= min_counts)
+    if cells.size == 0:
+        cell_mm = float(np.median(np.diff(x_edges)))
+        suggested = choose_gain_cell_mm(x, y, min_counts=min_counts)
+        raise GainCellError(
+            f"no gain-map cell of {cell_mm:g} mm reached min_counts={min_counts} events (the fullest holds "
+            f"{int(counts.max())} of {ph.size} events over {np.ptp(x):.3g} x {np.ptp(y):.3g} mm)",
+            cell_mm=cell_mm, min_counts=int(min_counts), fullest=int(counts.max()), n_events=int(ph.size),
+            suggested_cell_mm=suggested)
     groups = [order[starts[c]:starts[c + 1]] for c in cells]
-    peaks, errors, global_fit = grouped_peaks(ph, groups, line=line, bins=bins, fit_range=fit_range)
-    reference = global_fit.peak
+    grouped = grouped_peaks(ph, groups, line=line, bins=bins, fit_range=fit_range)
+    reference = grouped.global_fit.peak
     gain = np.full(shape, np.nan)
     gain_err = np.full(shape, np.nan)
-    gain.flat[cells] = peaks / reference
-    gain_err.flat[cells] = errors / reference
+    deviance = np.full(shape, np.nan)
+    ndof = np.zeros(shape)
+    gain.flat[cells] = grouped.peaks / reference
+    gain_err.flat[cells] = grouped.errors / reference
+    deviance.flat[cells] = grouped.deviance
+    ndof.flat[cells] = grouped.ndof
     return GainMap(x_edges_mm=x_edges, y_edges_mm=y_edges, relative_gain=gain, relative_gain_err=gain_err,
                    counts=counts, reference_peak=float(reference), min_counts=int(min_counts), line=line,
-                   position=position, global_fit=global_fit)
+                   position=position, global_fit=grouped.global_fit, cell_deviance=deviance, cell_ndof=ndof)
+
+
+def choose_gain_cell_mm(x_mm, y_mm, *, min_counts: int = 300, covered_fraction: float = 0.8,
+                        candidates=GAIN_CELL_CANDIDATES_MM) -> float | None:
+    """The smallest cell size for which most events lie in cells that can be fitted.
+
+    For each candidate (smallest first) the cells are laid out over the positions as
+    :func:`~trackfit.analysis.spurious.centred_cell_edges` does; the first candidate that puts at least
+    ``covered_fraction`` of the events into cells with at least ``min_counts`` events is returned. With a flat
+    field of ``N`` events over an area ``A``, this is a cell of about ``sqrt(A min_counts / N)`` or a little more.
+
+    Returns
+    -------
+    float or None
+        The cell size in mm, or None when even the largest candidate leaves the events below ``min_counts``.
+    """
+    x = np.asarray(x_mm, dtype=float)
+    y = np.asarray(y_mm, dtype=float)
+    good = np.isfinite(x) & np.isfinite(y)
+    x, y = x[good], y[good]
+    if x.size < min_counts:
+        return None
+    for cell in candidates:
+        x_edges, y_edges = centred_cell_edges(x, cell), centred_cell_edges(y, cell)
+        counts, _, _ = np.histogram2d(x, y, bins=(x_edges, y_edges))
+        if counts[counts >= min_counts].sum() >= covered_fraction * x.size:
+            return float(cell)
+    return None

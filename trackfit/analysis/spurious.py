@@ -18,7 +18,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["SpuriousMap", "measure_spurious_map", "SpuriousSeparation", "separate_spurious", "cell_edges"]
+__all__ = ["SpuriousMap", "measure_spurious_map", "SpuriousSeparation", "separate_spurious", "cell_edges",
+           "centred_cell_edges"]
 
 
 def cell_edges(low_mm: float, high_mm: float, cell_mm: float) -> np.ndarray:
@@ -29,6 +30,28 @@ def cell_edges(low_mm: float, high_mm: float, cell_mm: float) -> np.ndarray:
         raise ValueError(f"cell range needs high > low (got [{low_mm}, {high_mm}])")
     n = max(int(np.ceil((high_mm - low_mm) / cell_mm - 1e-9)), 1)
     return low_mm + cell_mm * np.arange(n + 1)
+
+
+def centred_cell_edges(values_mm, cell_mm: float) -> np.ndarray:
+    """Edges of cells of about ``cell_mm`` laid over the finite ``values_mm``, centred on the data.
+
+    ``n = round(span / cell_mm)`` cells (at least one) of ``cell_mm`` are centred on the middle of the data's span
+    (the 0.5 to 99.5 percentiles, so stray events do not shift the grid); the two outer edges are then moved out to
+    the smallest and largest value, so every event lies in a cell and the outer cells are cut alike on both sides.
+    A flat field of 10 mm with 2.5 mm cells gets 4 x 4 full cells, not 5 x 5 with half-empty borders.
+    """
+    if not (np.isfinite(cell_mm) and cell_mm > 0):
+        raise ValueError(f"'cell_mm' must be > 0 (got {cell_mm!r})")
+    values = np.asarray(values_mm, dtype=float)
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        raise ValueError("no finite positions to lay the cells over")
+    low, high = np.percentile(values, [0.5, 99.5])
+    n = max(int(round((high - low) / cell_mm)), 1)
+    edges = 0.5 * (low + high) + cell_mm * (np.arange(n + 1) - 0.5 * n)
+    edges[0] = min(edges[0], float(values.min()))
+    edges[-1] = max(edges[-1], np.nextafter(float(values.max()), np.inf))
+    return edges
 
 
 def _cell_index(edges, values):
@@ -151,8 +174,9 @@ class SpuriousMap:
     def __repr__(self):
         nx, ny = self.q.shape[1:]
         filled = np.isfinite(self.q)
+        cell_x, cell_y = np.median(np.diff(self.x_edges_mm)), np.median(np.diff(self.y_edges_mm))
         lines = [f"SpuriousMap: {self.energy_kev.size} energy node(s), {nx} x {ny} cells of "
-                 f"{np.diff(self.x_edges_mm).mean():.3g} x {np.diff(self.y_edges_mm).mean():.3g} mm ({self.position})",
+                 f"{cell_x:.3g} x {cell_y:.3g} mm ({self.position})",
                  f"  {'E (keV)':>8}{'events':>10}{'cells':>7}{'<Q_sp>':>10}{'<U_sp>':>10}{'rms Q_sp':>10}"]
         for k, e in enumerate(self.energy_kev):
             ok = filled[k]

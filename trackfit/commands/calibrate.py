@@ -1,9 +1,10 @@
-"""``trackfit calibrate -o CAL [--flat-field T] [--line T,energy_kev=E] [--unpolarized T] [--polarized T,...]``.
+"""``trackfit calibrate -o CAL [--flat-field T[,energy_kev=E]] [--line T,energy_kev=E] [--unpolarized T]
+[--polarized T,...]``.
 
 Builds a calibration file (docs/calibration-format.md) from event tables of calibration runs: gain map (and
-optionally gain versus time) and energy scale from an Fe-55 flat field and further lines, a spurious-modulation map
-from unpolarized runs, a modulation-factor curve from polarized runs. A thin layer over
-:func:`trackfit.analysis.calibrate.build_calibration`.
+optionally gain versus time) and energy scale from a flat field of one line (Fe-55 by default) and further lines, or
+from lines alone; a spurious-modulation map from unpolarized runs, a modulation-factor curve from polarized runs.
+A thin layer over :func:`trackfit.analysis.calibrate.build_calibration`.
 """
 
 from __future__ import annotations
@@ -11,10 +12,11 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+from ..analysis.selection import NoEventsLeftError
 from ..cli import CommandError, flags_for_parameters
-from ._cuts import add_cut_options, parse_run_spec, selection_from_args
+from ._cuts import add_cut_options, parse_run_spec, print_warnings, selection_from_args
 
-#: library parameters of build_calibration -> the flags that set them (errors name the flag)
+#: library parameters of build_calibration quoted in its errors ('min_counts') -> the flags that set them
 PARAMETER_FLAGS = {"min_counts": "--gain-min-counts", "energy_edges_kev": "--spurious-energy-edges",
                    "polarization_degree": "degree=P of --polarized"}
 
@@ -22,14 +24,21 @@ PARAMETER_FLAGS = {"min_counts": "--gain-min-counts", "energy_edges_kev": "--spu
 def register(subparsers):
     parser = subparsers.add_parser(
         "calibrate", help="make a calibration file from calibration runs (event tables)",
-        description="Fit the gain map and energy scale on an Fe-55 flat field (plus optional further lines), "
-        "the spurious modulation on unpolarized runs and the modulation factor versus energy on polarized runs; "
-        "write them with their provenance to one calibration file.")
+        description="Fit the gain map on a flat field (Fe-55, or any line given with energy_kev=E), the energy "
+        "scale on the flat-field line and/or any further lines (lines alone are enough), the spurious modulation on "
+        "unpolarized runs and the modulation factor versus energy on polarized runs; write them with their "
+        "provenance (inputs, selection, cut flows) to one calibration file. Every run is selected with the default "
+        "selection (an emission angle and no failure status bit) plus the cuts given; the cut flow of each run is "
+        "printed. Poor fits are reported as warnings.")
     parser.add_argument("-o", "--output", required=True, metavar="CAL", help="calibration file to write")
-    parser.add_argument("--flat-field", nargs="+", default=[], metavar="TABLE",
-                        help="Fe-55 flat-field event table(s): gain map and the K-alpha line (5.895 keV)")
+    parser.add_argument("--flat-field", nargs="+", default=[], metavar="TABLE[,energy_kev=E]",
+                        help="flat-field event table(s) of one line: gain map and the first line of the energy "
+                        "scale; without energy_kev an Fe-55 source (Mn K-alpha 5.895 keV with K-beta), with it one "
+                        "Gaussian line at E keV")
     parser.add_argument("--line", action="append", default=[], metavar="TABLE,energy_kev=E",
-                        help="a further line for the energy scale (repeatable)")
+                        help="a line of known energy for the energy scale (repeatable; several lines may come from "
+                        "one table, e.g. a line and its escape peak); without --flat-field the lines alone make the "
+                        "scale (one line: through the origin)")
     parser.add_argument("--unpolarized", action="append", default=[], metavar="TABLE",
                         help="unpolarized run for the spurious-modulation map, one energy node each (repeatable)")
     parser.add_argument("--polarized", action="append", default=[], metavar="TABLE[,degree=P][,angle_deg=A]",
@@ -40,46 +49,57 @@ def register(subparsers):
     parser.add_argument("--quadratic", action="store_true", help="quadratic energy scale (needs 3 lines)")
     parser.add_argument("--gain-drift", action="store_true",
                         help="also fit gain versus time on the (single) flat-field run")
-    parser.add_argument("--gain-cell-mm", type=float, default=1.0, metavar="MM",
-                        help="gain-map cell size (default 1 mm)")
+    parser.add_argument("--gain-cell-mm", default="auto", metavar="MM|auto",
+                        help="gain-map cell size in mm (default auto: the smallest of 0.5, 1, 2, 2.5, 5, 10, 20, "
+                        "50 mm for which 80 %% of the flat-field events lie in cells of --gain-min-counts events)")
     parser.add_argument("--gain-min-counts", type=int, default=300, metavar="N",
-                        help="minimum events in a fitted gain-map cell (default 300)")
+                        help="minimum events in a fitted gain-map cell (default 300: about 0.4 %% precision per "
+                        "cell at 18 %% FWHM)")
     parser.add_argument("--spurious-cell-mm", type=float, default=2.0, metavar="MM",
-                        help="spurious-map cell size (default 2 mm)")
+                        help="spurious-map cell size (default 2 mm); cells are centred on the unpolarized data")
     parser.add_argument("--spurious-min-counts", type=int, default=100, metavar="N",
                         help="minimum events in a spurious-map cell (default 100)")
     parser.add_argument("--spurious-energy-edges", nargs="+", type=float, metavar="E_KEV",
                         help="pool the unpolarized runs into these energy bins, one map node each "
                         "(default: one node per run)")
     parser.add_argument("--extent-mm", nargs=4, type=float, metavar=("X0", "X1", "Y0", "Y1"),
-                        help="region covered by the maps (default: range of the flat-field positions)")
+                        help="region covered by the maps (default: cells centred on each map's data)")
     parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
                         help="per-event weights for the spurious map and modulation factor (default none)")
     parser.add_argument("--figures", metavar="DIR", help="write figures of every fit as PNG (default: no figures)")
     parser.add_argument("--overwrite", action="store_true", help="replace an existing output file")
-    add_cut_options(parser, what="unpolarized and polarized events (after calibration; default: status == 0)")
-    add_cut_options(parser, prefix="flat-", what="flat-field and line events (default: status == 0)")
+    add_cut_options(parser, what="unpolarized and polarized events, after calibration (use the same in "
+                    "trackfit polarization)")
+    add_cut_options(parser, prefix="flat-", what="flat-field and line events", calibrated=False)
     parser.set_defaults(func=run)
 
 
-def _read(path):
-    from ..io.table import read_table
-
-    if not Path(path).exists():
-        raise FileNotFoundError(f"event table '{path}' does not exist")
-    return read_table(path)
+#: parameters of build_calibration named in its errors -> the flags of this command
+_FLAGS = {"gain_cell_mm": "--gain-cell-mm", "gain_min_counts": "--gain-min-counts",
+          "spurious_cell_mm": "--spurious-cell-mm", "spurious_min_counts": "--spurious-min-counts",
+          "spurious_energy_edges_kev": "--spurious-energy-edges", "extent_mm": "--extent-mm"}
 
 
-def _selection_or_default(args, prefix=""):
-    from ..analysis import Everything, StatusCut
+def _with_flags(message: str) -> str:
+    import re
 
-    selection = selection_from_args(args, prefix=prefix)
-    return StatusCut() if isinstance(selection, Everything) else selection
+    return re.sub(r"\b(" + "|".join(sorted(_FLAGS, key=len, reverse=True)) + r")\b", lambda m: _FLAGS[m.group(1)],
+                  message)
 
 
 def _check_flags(args) -> None:
-    """Values the library would report under its own parameter names (shared by the gain and spurious maps)."""
-    for flag, value in (("--gain-cell-mm", args.gain_cell_mm), ("--spurious-cell-mm", args.spurious_cell_mm)):
+    """Values the library would report under its own parameter names (shared by the gain and spurious maps);
+    ``--gain-cell-mm`` becomes a size in mm, or None for 'auto'."""
+    if args.gain_cell_mm == "auto":
+        args.gain_cell_mm = None
+    else:
+        try:
+            args.gain_cell_mm = float(args.gain_cell_mm)
+        except ValueError:
+            raise CommandError(f"--gain-cell-mm must be a size in mm or 'auto' (got '{args.gain_cell_mm}')") from None
+        if not args.gain_cell_mm > 0:
+            raise CommandError(f"--gain-cell-mm must be > 0 mm or 'auto' (got {args.gain_cell_mm:g})")
+    for flag, value in (("--spurious-cell-mm", args.spurious_cell_mm),):
         if not value > 0:
             raise CommandError(f"{flag} must be > 0 (got {value:g})")
     for flag, value in (("--gain-min-counts", args.gain_min_counts),
@@ -92,7 +112,35 @@ def _check_flags(args) -> None:
             raise CommandError(f"--extent-mm X0 X1 Y0 Y1 needs X1 > X0 and Y1 > Y0 (got {x0:g} {x1:g} {y0:g} {y1:g})")
 
 
+class _Tables:
+    """Event tables read once per path (lines of one table share it, so they are found together)."""
+
+    def __init__(self):
+        self.tables = {}
+
+    def __call__(self, path):
+        from ..io.table import read_table
+
+        key = str(Path(path).resolve())
+        if key not in self.tables:
+            if not Path(path).exists():
+                raise FileNotFoundError(f"event table '{path}' does not exist")
+            self.tables[key] = read_table(path)
+        return self.tables[key]
+
+
 def run(args) -> int:
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            return _run(args)
+        finally:
+            print_warnings("calibrate", caught)
+
+
+def _run(args) -> int:
     from ..analysis import Calibration
     from ..analysis.calibrate import CalibrationRun, build_calibration
 
@@ -102,7 +150,13 @@ def run(args) -> int:
     output = Path(args.output)
     if output.exists() and not args.overwrite:
         raise FileExistsError(f"'{output}' exists; pass --overwrite to replace it")
-    flat = [CalibrationRun(table=_read(p), label=Path(p).name) for p in args.flat_field]
+    read = _Tables()
+    flat = []
+    for spec in args.flat_field:
+        path, opts = parse_run_spec(spec, ("energy_kev",))
+        if "energy_kev" in opts and not opts["energy_kev"] > 0:
+            raise CommandError(f"--flat-field '{spec}': energy_kev must be > 0 keV (got {opts['energy_kev']:g})")
+        flat.append(CalibrationRun(table=read(path), label=Path(path).name, energy_kev=opts.get("energy_kev")))
     lines = []
     for spec in args.line:
         path, opts = parse_run_spec(spec, ("energy_kev",))
@@ -110,24 +164,33 @@ def run(args) -> int:
             raise CommandError(f"--line '{spec}' needs energy_kev=E")
         if not opts["energy_kev"] > 0:
             raise CommandError(f"--line '{spec}': energy_kev must be > 0 keV (got {opts['energy_kev']:g})")
-        lines.append(CalibrationRun(table=_read(path), label=Path(path).name, energy_kev=opts["energy_kev"]))
-    unpolarized = [CalibrationRun(table=_read(p), label=Path(p).name) for p in args.unpolarized]
+        lines.append(CalibrationRun(table=read(path), label=Path(path).name, energy_kev=opts["energy_kev"]))
+    unpolarized = [CalibrationRun(table=read(p), label=Path(p).name) for p in args.unpolarized]
     polarized = []
     for spec in args.polarized:
         path, opts = parse_run_spec(spec, ("degree", "angle_deg"))
         angle = opts.get("angle_deg")
-        polarized.append(CalibrationRun(table=_read(path), label=Path(path).name,
+        polarized.append(CalibrationRun(table=read(path), label=Path(path).name,
                                         polarization_degree=opts.get("degree", 1.0),
                                         polarization_angle_rad=None if angle is None else math.radians(angle)))
     base = Calibration.load(args.update) if args.update else None
+    selection, flat_selection = selection_from_args(args), selection_from_args(args, prefix="flat-")
     with flags_for_parameters(PARAMETER_FLAGS):
-        calibration, report = build_calibration(
-            flat_field=flat, lines=lines, unpolarized=unpolarized, polarized=polarized,
-            selection=_selection_or_default(args), flat_selection=_selection_or_default(args, "flat-"),
-            weighting=args.weights, gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts,
-            gain_drift=args.gain_drift, quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
-            spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
-            extent_mm=args.extent_mm, base=base)
+        try:
+            calibration, report = build_calibration(
+                flat_field=flat, lines=lines, unpolarized=unpolarized, polarized=polarized,
+                selection=selection, flat_selection=flat_selection, weighting=args.weights,
+                gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts, gain_drift=args.gain_drift,
+                quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
+                spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
+                extent_mm=args.extent_mm, base=base)
+        except NoEventsLeftError:
+            raise
+        except ValueError as err:  # messages naming build_calibration's parameters (gain_cell_mm=...) name flags
+            text = _with_flags(str(err))
+            if text == str(err):
+                raise
+            raise CommandError(text) from None
     calibration.save(output, overwrite=args.overwrite)
     _print_report(calibration, report)
     print(f"wrote {output}")
@@ -137,17 +200,22 @@ def run(args) -> int:
 
 
 def _print_report(calibration, report):
+    roles = {"flat field": "flat field", "line": "line", "unpolarized": "unpolarized", "polarized": "polarized"}
+    for label, role, flow in report.cut_flows:
+        print(f"Cut flow of {roles[role]} run {label}")
+        print(flow)
+        print()
     if report.flat_field_fit is not None:
-        print("flat field (gain-corrected):")
+        print(f"flat-field line at {report.flat_field_line_kev:g} keV (gain-corrected):")
         print(report.flat_field_fit)
     for label, energy, fit in report.line_fits:
         print(f"line {label} at {energy:g} keV: peak {fit.peak:.5g} ± {fit.peak_err:.2g}, "
-              f"FWHM/peak {100 * fit.fwhm_frac:.1f} %")
+              f"FWHM/peak {100 * fit.fwhm_frac:.1f} %, {fit.quality}")
     for label, point in report.modulation_points:
         print(f"modulation factor {label}: {point.value:.4f} ± {point.error:.4f} at {point.energy_kev:.3f} keV "
               f"({point.n_events} events)")
     for note in report.notes:
-        print(f"note: {note}")
+        print(f"note: {_with_flags(note)}")
     print(calibration)
 
 
@@ -161,6 +229,10 @@ def _figures(calibration, report, out: Path, polarized=()):
                             out / "flat_field_spectrum.png")
     if calibration.gain_map is not None:
         figures.save_figure(figures.plot_gain_map(calibration.gain_map), out / "gain_map.png")
+    for label, energy, fit in report.line_fits:
+        xlabel = "gain-corrected pulse height [ADC]" if calibration.gain_map is not None else "pulse height [ADC]"
+        figures.save_figure(figures.plot_spectrum_fit(fit, xlabel=xlabel),
+                            out / f"line_{Path(label).stem}_{energy:.3g}kev.png")
     if calibration.gain_drift is not None:
         figures.save_figure(figures.plot_gain_drift(calibration.gain_drift), out / "gain_drift.png")
     if calibration.modulation_factor is not None:

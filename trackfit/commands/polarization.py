@@ -11,7 +11,7 @@ import json
 from pathlib import Path
 
 from ..cli import CommandError, flags_for_parameters
-from ._cuts import add_cut_options, selection_from_args
+from ._cuts import add_cut_options, has_cut_options, print_warnings, selection_from_args
 
 #: library parameters of measure_polarization -> the flags that set them (errors name the flag)
 PARAMETER_FLAGS = {"n_bins": "--bins", "confidence_level": "--confidence", "energy_bands_kev": "--bands",
@@ -24,7 +24,9 @@ def register(subparsers):
         description="Apply a calibration file to an event table, select events and compute the normalized, "
         "modulation-corrected Stokes parameters (unbinned), polarization degree and angle with errors, the "
         "Rice-based interval of the degree and the MDP99; optionally per energy band and with an off-source "
-        "background subtracted.")
+        "background subtracted. Events: the default selection (an emission angle and no failure status bit), plus "
+        "the cuts given; it is the first line of the cut flow. A warning says when the status and track-shape cuts "
+        "or the weights differ from those the calibration was made with.")
     parser.add_argument("table", metavar="TABLE", help="event table of the run (trackfit reconstruct output)")
     parser.add_argument("-c", "--calibration", metavar="CAL",
                         help="calibration file (trackfit calibrate output; default: none, then give "
@@ -55,12 +57,18 @@ def register(subparsers):
     parser.set_defaults(func=run)
 
 
-def _has_background_cuts(args) -> bool:
-    return any(getattr(args, f"bkg_{name}") for name in ("cuts", "status_ok", "energy_kev", "circle")) or \
-        args.bkg_min_elongation is not None
-
-
 def run(args) -> int:
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            return _run(args)
+        finally:
+            print_warnings("polarization", caught)
+
+
+def _run(args) -> int:
     from ..analysis import Calibration, measure_polarization
     from ..io.table import read_table
 
@@ -77,7 +85,7 @@ def run(args) -> int:
         raise CommandError(f"measuring polarization needs a modulation factor, and {where}: give -c CAL made "
                            "with --polarized runs, or --modulation-factor MU")
     selection = selection_from_args(args)
-    background_selection = selection_from_args(args, prefix="bkg-") if _has_background_cuts(args) else None
+    background_selection = selection_from_args(args, prefix="bkg-") if has_cut_options(args, prefix="bkg-") else None
     background_table = read_table(args.background_table) if args.background_table else None
     if (background_selection is not None or background_table is not None) and args.background_scale is None:
         raise CommandError("a background (--bkg-* cuts or --background-table) needs --background-scale")
