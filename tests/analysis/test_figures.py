@@ -47,15 +47,24 @@ def test_all_figures(tmp_path):
     curve = fit_modulation_factor_curve([ModulationFactorPoint(energy_kev=e, value=v, error=0.01, n_events=1000)
                                          for e, v in ((2.7, 0.25), (3.7, 0.32), (5.9, 0.47))])
     figures.save_figure(figures.plot_modulation_factor(curve), tmp_path / "mu.png")
-    edges = cell_edges(-2, 2, 1.0)
     run = {"emission_rad": phi[:20_000], "energy_kev": np.full(20_000, 5.9),
            "conv_x_mm": rng.uniform(-2, 2, 20_000), "conv_y_mm": rng.uniform(-2, 2, 20_000)}
-    figures.save_figure(figures.plot_spurious_map(measure_spurious_map([run], x_edges_mm=edges, y_edges_mm=edges)),
-                        tmp_path / "spurious.png")
+    spurious = measure_spurious_map([run], x_edges_mm=cell_edges(-6, 6, 1.0), y_edges_mm=cell_edges(-6, 6, 1.0))
+    fig = figures.plot_spurious_map(spurious)
+    assert len(fig.axes) == 5  # Q_sp, U_sp, significance and two colour bars
+    assert fig.axes[0].get_xlim() == pytest.approx((-2.2, 2.2))  # zoomed on the cells with data, not -6..6
+    assert "significance" in fig.axes[4].get_ylabel() and "χ²" in fig.axes[2].get_title()
+    figures.save_figure(fig, tmp_path / "spurious.png")
     x, y = rng.uniform(-2, 2, ph.size), rng.uniform(-2, 2, ph.size)
     gain = fit_gain_map(x, y, ph, x_edges_mm=cell_edges(-2, 2, 2.0), y_edges_mm=cell_edges(-2, 2, 2.0))
     fig = figures.plot_gain_map(gain)
     assert fig.axes[0].get_xlabel() == "centroid x [mm]"
+    # a uniform gain measured with errors: the colour scale spans at least 5 median errors around 1, so the
+    # statistical scatter does not fill it
+    low, high = fig.axes[0].collections[0].get_clim()
+    error = np.median(gain.relative_gain_err)
+    assert high - 1 == pytest.approx(1 - low) and high - 1 >= 5 * error
+    assert np.max(np.abs(gain.relative_gain - 1)) < 0.5 * (high - 1)
     figures.save_figure(fig, tmp_path / "gain.png")
     assert len(list(tmp_path.glob("*.png"))) == 7
     assert plt.get_fignums() == []  # save_figure closes

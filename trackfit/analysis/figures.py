@@ -4,12 +4,13 @@ Every function takes a result object and an optional ``ax`` (a new figure is mad
 returns the :class:`matplotlib.figure.Figure`. Angles are shown in degrees.
 
 * :func:`plot_spectrum_fit` - pulse-height spectrum with the fitted line model;
-* :func:`plot_gain_map` - relative gain over the chip;
+* :func:`plot_gain_map` - relative gain over the chip, on a colour scale centred on 1 that spans at least five
+  typical cell errors (statistical noise stays pale);
 * :func:`plot_gain_drift` - slice peaks and the smooth gain model versus time;
 * :func:`plot_modulation_curve` - angle histogram with the fitted ``A + B cos^2``;
 * :func:`plot_stokes_plane` - (Q, U) with the 1-sigma and 2-sigma error ellipses and the MDP99 circle;
 * :func:`plot_modulation_factor` - measured points and the fitted curve;
-* :func:`plot_spurious_map` - Q_sp and U_sp over the chip at one energy node.
+* :func:`plot_spurious_map` - Q_sp, U_sp and their significance over the cells holding data, at one energy node.
 """
 
 from __future__ import annotations
@@ -47,8 +48,10 @@ def plot_spectrum_fit(fit, *, ax=None, xlabel: str = "pulse height [ADC]"):
                 label="data")
     fine = np.linspace(edges[0], edges[-1], 600)
     ax.plot(fine, fit.density(fine) * np.diff(edges).mean(), color="tab:red", lw=1.4, label="fit")
+    quality = fit.quality
     text = (f"peak {fit.peak:.5g} ± {fit.peak_err:.2g}\nFWHM/peak {100 * fit.fwhm_frac:.1f} %\n"
-            f"deviance/ndof {fit.deviance:.1f}/{fit.ndof}")
+            f"deviance/ndof {fit.deviance:.1f}/{fit.ndof} (p = {quality.p_value:.2g})"
+            + ("\nPOOR FIT" if quality.poor else ""))
     ax.text(0.02, 0.97, text, transform=ax.transAxes, va="top", fontsize=8, family="monospace")
     ax.set_xlabel(xlabel)
     ax.set_ylabel("events per bin")
@@ -57,16 +60,45 @@ def plot_spectrum_fit(fit, *, ax=None, xlabel: str = "pulse height [ADC]"):
 
 
 def plot_gain_map(gain_map, *, ax=None):
-    """Relative gain per cell (unmeasured cells blank)."""
+    """Relative gain per cell (unmeasured cells blank).
+
+    The diverging colour scale is centred on 1 and spans ``1 ± max(largest deviation, 5 × median cell error,
+    1 %)``: a map whose cells differ only by their statistical errors shows pale colours instead of stretching the
+    noise over the full range. The title compares the spread with the errors (chi-square about the mean).
+    """
     fig, ax = _axes(ax, figsize=(5.6, 4.8))
     values = np.ma.masked_invalid(gain_map.relative_gain.T)
-    mesh = ax.pcolormesh(gain_map.x_edges_mm, gain_map.y_edges_mm, values, cmap="viridis", shading="flat")
-    fig.colorbar(mesh, ax=ax, label="relative gain")
+    measured = np.isfinite(gain_map.relative_gain)
+    deviation = float(np.max(np.abs(gain_map.relative_gain[measured] - 1.0))) if measured.any() else 0.0
+    error = float(np.median(gain_map.relative_gain_err[measured])) if measured.any() else 0.0
+    half = max(deviation, 5.0 * error, 0.01)
+    mesh = ax.pcolormesh(gain_map.x_edges_mm, gain_map.y_edges_mm, values, cmap="RdBu_r", vmin=1.0 - half,
+                         vmax=1.0 + half, shading="flat")
+    fig.colorbar(mesh, ax=ax, label=f"relative gain (median cell error ± {100 * error:.2f} %)")
+    _zoom_to_cells(ax, gain_map.x_edges_mm, gain_map.y_edges_mm, measured)
     ax.set_aspect("equal")
     ax.set_xlabel(f"{gain_map.position} x [mm]")
     ax.set_ylabel(f"{gain_map.position} y [mm]")
-    ax.set_title(f"gain map ({gain_map.n_measured} cells with ≥ {gain_map.min_counts} events)", fontsize=9)
+    spread = float(np.std(gain_map.relative_gain[measured])) if measured.any() else 0.0
+    uniformity = gain_map.uniformity()
+    verdict = ""
+    if uniformity.ndof > 0:
+        verdict = (f"; cells differ more than their errors (p = {uniformity.p_value:.2g})"
+                   if uniformity.p_value < 0.01 else "; differences consistent with the errors")
+    ax.set_title(f"gain map: {gain_map.n_measured} cells with ≥ {gain_map.min_counts} events\n"
+                 f"rms spread {100 * spread:.2f} %{verdict}", fontsize=9)
     return fig
+
+
+def _zoom_to_cells(ax, x_edges, y_edges, filled):
+    """Limit the axes to the cells holding data (plus a small margin), so the data fill the middle of the view."""
+    if not np.any(filled):
+        return
+    ix, iy = np.nonzero(filled)
+    x0, x1, y0, y1 = x_edges[ix.min()], x_edges[ix.max() + 1], y_edges[iy.min()], y_edges[iy.max() + 1]
+    pad = 0.05 * max(x1 - x0, y1 - y0)
+    ax.set_xlim(x0 - pad, x1 + pad)
+    ax.set_ylim(y0 - pad, y1 + pad)
 
 
 def plot_gain_drift(drift, *, ax=None):
@@ -98,7 +130,7 @@ def plot_modulation_curve(fit, *, ax=None):
     ax.set_ylabel("events per bin" + (" (weighted)" if fit.weighted else ""))
     ax.set_title(f"m = {fit.modulation:.4f} ± {fit.modulation_err:.4f},  "
                  f"φ0 = {np.rad2deg(fit.phase_rad):.1f}° ± {np.rad2deg(fit.phase_err_rad):.1f}°,  "
-                 f"χ²/ndof = {fit.chi2:.1f}/{fit.ndof}", fontsize=9)
+                 f"χ²/ndof = {fit.chi2:.1f}/{fit.ndof}" + (" (POOR FIT)" if fit.quality.poor else ""), fontsize=9)
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     return fig
 
@@ -129,8 +161,9 @@ def plot_stokes_plane(result, *, ax=None):
     ax.set_aspect("equal")
     ax.set_xlabel("Q / I (modulation-corrected)")
     ax.set_ylabel("U / I (modulation-corrected)")
-    ax.set_title(f"p = {100 * result.degree:.2f} ± {100 * result.degree_err:.2f} %, "
-                 f"ψ = {result.angle_deg:.1f} ± {result.angle_err_deg:.1f}°", fontsize=9)
+    angle = (f"ψ = {result.angle_deg:.1f} ± {result.angle_err_deg:.1f}°" if result.detected
+             else "ψ undefined (not detected at 99 %)")
+    ax.set_title(f"p = {100 * result.degree:.2f} ± {100 * result.degree_err:.2f} %, {angle}", fontsize=9)
     ax.legend(fontsize=8, frameon=False, loc="upper right")
     return fig
 
@@ -156,20 +189,47 @@ def plot_modulation_factor(curve, *, ax=None, provenance=None, calibrated: bool 
 
 
 def plot_spurious_map(spurious, node: int = 0, *, axes=None):
-    """Q_sp and U_sp over the chip at energy node ``node`` (two panels, common symmetric colour scale)."""
+    """Q_sp, U_sp and their significance at energy node ``node`` (three panels over the cells holding data).
+
+    Q_sp and U_sp share a colour scale symmetric about 0 that spans at least three median cell errors; the third
+    panel is the significance of each cell, ``sqrt((Q_sp/σ_Q)² + (U_sp/σ_U)²)``: for a cell without spurious
+    modulation a Rayleigh variable (mean 1.25, above 3 in 1.1 % of such cells, ``exp(-9/2)``). The title gives the
+    chi-square of the whole node against no spurious modulation.
+    """
     import matplotlib.pyplot as plt
+    from scipy import stats
 
     if axes is None:
-        fig, axes = plt.subplots(1, 2, figsize=(9.5, 4.2), layout="constrained", sharey=True)
+        fig, axes = plt.subplots(1, 3, figsize=(13.5, 4.2), layout="constrained", sharey=True)
     fig = axes[0].figure
     q, u = spurious.q[node], spurious.u[node]
-    limit = np.nanmax(np.abs(np.concatenate([q.ravel(), u.ravel()]))) if np.isfinite(q).any() else 1.0
+    q_err, u_err = spurious.q_err[node], spurious.u_err[node]
+    filled = np.isfinite(q) & np.isfinite(u)
+    # symmetric scale spanning at least three typical cell errors: cells that differ from 0 by noise stay pale
+    limit = 1.0
+    if filled.any():
+        largest = float(np.max(np.abs(np.concatenate([q[filled], u[filled]]))))
+        typical = float(np.median(np.concatenate([q_err[filled], u_err[filled]])))
+        limit = max(largest, 3.0 * typical, 1e-6)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        significance = np.where(filled & (q_err > 0) & (u_err > 0), np.hypot(q / q_err, u / u_err), np.nan)
+    mesh = None
     for ax, values, name in ((axes[0], q, "Q_sp"), (axes[1], u, "U_sp")):
         mesh = ax.pcolormesh(spurious.x_edges_mm, spurious.y_edges_mm, np.ma.masked_invalid(values.T),
                              cmap="coolwarm", vmin=-limit, vmax=limit, shading="flat")
+        ax.set_title(f"{name} at {spurious.energy_kev[node]:.2f} keV", fontsize=9)
+    fig.colorbar(mesh, ax=list(axes[:2]), label="<cos 2φ>, <sin 2φ> of unpolarized events", shrink=0.9)
+    top = max(3.0, float(np.nanmax(significance)) if np.isfinite(significance).any() else 3.0)
+    sig_mesh = axes[2].pcolormesh(spurious.x_edges_mm, spurious.y_edges_mm, np.ma.masked_invalid(significance.T),
+                                  cmap="magma_r", vmin=0.0, vmax=top, shading="flat")
+    fig.colorbar(sig_mesh, ax=axes[2], label="significance per cell [σ]", shrink=0.9)
+    good = np.isfinite(significance)
+    chi2, ndof = float(np.sum(significance[good] ** 2)), 2 * int(good.sum())
+    p_value = float(stats.chi2.sf(chi2, ndof)) if ndof else float("nan")
+    axes[2].set_title(f"χ² against none: {chi2:.1f}/{ndof} (p = {p_value:.2g})", fontsize=9)
+    for ax in axes:
+        _zoom_to_cells(ax, spurious.x_edges_mm, spurious.y_edges_mm, filled)
         ax.set_aspect("equal")
         ax.set_xlabel(f"{spurious.position} x [mm]")
-        ax.set_title(f"{name} at {spurious.energy_kev[node]:.2f} keV", fontsize=9)
     axes[0].set_ylabel(f"{spurious.position} y [mm]")
-    fig.colorbar(mesh, ax=list(axes), label="<cos 2φ>, <sin 2φ> of unpolarized events")
     return fig
