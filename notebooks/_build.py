@@ -143,7 +143,7 @@ from pathlib import Path
 import numpy as np
 
 import trackfit
-from trackfit.analysis import fit_fe55, stokes_parameters
+from trackfit.analysis import default_selection, fit_fe55, stokes_parameters
 from trackfit.recon import ReconConfig
 from trackfit.tuning import load_subsample, read_settings, sweep_settings
 
@@ -155,7 +155,7 @@ unpolarized, _ = load_subsample(UNPOLARIZED, N_EVENTS)
     ("md", "First an energy scale, so that the energy window means keV: the Fe-55 line of the unpolarized run."),
     ("code", """
 raw_table = trackfit.reconstruct(unpolarized)
-line = fit_fe55(raw_table["pulse_height"][raw_table["status"] == 0])
+line = fit_fe55(raw_table["pulse_height"][default_selection().mask(raw_table)])
 base = replace(ReconConfig(), counts_per_kev=line.peak / LINE_ENERGY_KEV)
 line
 """),
@@ -230,7 +230,7 @@ POLARIZED = {                                                       # raw file -
     "../sample_data/pol100_5p9kev_30deg.h5": (1.0, 30.0),
 }
 SETTINGS = None            # reconstruction settings (TOML) or None for the defaults
-GAIN_CELL_MM = 2.5         # gain-map cells
+GAIN_CELL_MM = None        # gain-map cells in mm; None: chosen from the number of flat-field events
 SPURIOUS_CELL_MM = 10.0    # spurious-map cells: large, as the sample flat field is small
 OUTPUT_DIR = "calibration_output"
 """),
@@ -241,7 +241,7 @@ from pathlib import Path
 import numpy as np
 
 import trackfit
-from trackfit.analysis import CalibrationRun, EnergyWindow, StatusCut, build_calibration, figures
+from trackfit.analysis import CalibrationRun, EnergyWindow, build_calibration, figures
 from trackfit.recon import ReconConfig
 
 output = Path(OUTPUT_DIR)
@@ -264,7 +264,10 @@ runs = [CalibrationRun(table=polarized[path], label=Path(path).name, polarizatio
 calibration, report = build_calibration(
     flat_field=[CalibrationRun(table=flat, label=Path(FLAT_FIELD).name)],
     unpolarized=[CalibrationRun(table=flat, label=Path(FLAT_FIELD).name)],
-    polarized=runs, gain_cell_mm=GAIN_CELL_MM, gain_min_counts=200, spurious_cell_mm=SPURIOUS_CELL_MM)
+    polarized=runs, gain_cell_mm=GAIN_CELL_MM, spurious_cell_mm=SPURIOUS_CELL_MM)
+for label, role, flow in report.cut_flows:  # every run: the default selection first, then the cuts given
+    print(f"{role} run {label}")
+    print(flow, end="\\n\\n")
 calibration
 """),
     ("md", "## Energy: the Fe-55 line fit (after gain correction) and the energy scale"),
@@ -298,7 +301,7 @@ reloaded = Calibration.load(path)
 checks = {}
 for raw_path, (degree, angle) in POLARIZED.items():
     result = measure_polarization(polarized[raw_path], calibration=reloaded,
-                                  selection=StatusCut() & EnergyWindow(low_kev=1.0, high_kev=10.0))
+                                  selection=EnergyWindow(low_kev=1.0, high_kev=10.0))  # + the default
     checks[Path(raw_path).name] = {"degree": result.stokes.degree, "degree_err": result.stokes.degree_err,
                                    "angle_deg": float(np.rad2deg(result.stokes.angle_rad)), "true_degree": degree,
                                    "true_angle_deg": angle}
