@@ -2,7 +2,7 @@
 
 A binned fit reports its Poisson deviance or Pearson chi-square and the degrees of freedom ``ndof``; for a model
 that describes the data, both follow asymptotically a chi-square law with ``ndof`` degrees of freedom (Baker &
-Cousins 1984, Nucl. Instrum. Meth. 221, 437), so their ratio to ``ndof`` is near 1.
+Cousins 1984, Nucl. Instrum. Meth. 221, 437; docs/methods.md §3), so their ratio to ``ndof`` is near 1.
 
 A fit is **poor** when the statistic is both improbable (chi-square p-value below :data:`POOR_FIT_P_VALUE`) and far
 above its expectation (ratio to ``ndof`` above :data:`POOR_FIT_RATIO`). The p-value alone would flag, in large data

@@ -304,7 +304,8 @@ def choose_gain_cell_mm(x_mm, y_mm, *, min_counts: int = 300, covered_fraction: 
     For each candidate (smallest first) the cells are laid out over the positions as
     :func:`~trackfit.analysis.spurious.centred_cell_edges` does; the first candidate that puts at least
     ``covered_fraction`` of the events into cells with at least ``min_counts`` events is returned. With a flat
-    field of ``N`` events over an area ``A``, this is a cell of about ``sqrt(A min_counts / N)`` or a little more.
+    field of ``N`` events over an area ``A``, this is a cell of about ``sqrt(A min_counts / N)`` or a little more
+    (docs/methods.md §6).
 
     Returns
     -------

@@ -1,4 +1,5 @@
-"""Find lines of known energy in pulse-height spectra and fit each in a window clear of its neighbours.
+"""Find lines of known energy in pulse-height spectra and fit each in a window clear of its neighbours
+(docs/methods.md §6).
 
 An energy scale needs the pulse height of each calibration line. When nothing tells where the lines are, the gain
 (pulse height per keV) is found by a scan: for each trial gain ``g`` every line ``E_i`` is looked up at ``g E_i`` in
