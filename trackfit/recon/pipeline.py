@@ -12,7 +12,6 @@ from __future__ import annotations
 import os
 import queue
 import threading
-import zlib
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -23,6 +22,8 @@ from ..hexgrid import HexGrid
 from ..io._partial import now_utc
 from ..io.compression import DEFAULT_COMPRESSION
 from ..io.energy_label import SCALE_KEY, SOURCE_KEY
+from ..io.fingerprint import RawFingerprint as _Fingerprint
+from ..io.fingerprint import content_fingerprint as _content_fingerprint
 from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range
 from .config import ReconConfig
@@ -187,41 +188,9 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1, run_info=No
     return EventTable(_columns(batch, out_f, out_i), _base_provenance(config, batch.grid, scale))
 
 
-class _Fingerprint:
-    """Checksums of the events' content as read, independent of batch size, chunking and compression.
-
-    One CRC-32 (``zlib.crc32``, several GB/s, computed without the GIL) per array - roi (int32), pixels per event
-    (int64), signal (int16), time_s (float64), trigger_id (int64), each in little-endian byte order - fed batch by
-    batch, written as ``"crc32:roi=<hex>,n_pixels=<hex>,signal=<hex>,time_s=<hex>,trigger_id=<hex>"``. A cheap
-    identity check of the input (an accidental change escapes it with probability 2**-32 per array), not a
-    cryptographic one.
-    """
-
-    NAMES = ("roi", "n_pixels", "signal", "time_s", "trigger_id")
-
-    def __init__(self):
-        self._crc = [0] * len(self.NAMES)
-
-    def update(self, batch: EventBatch) -> None:
-        arrays = (batch.roi.astype("<i4", copy=False), np.diff(batch.start).astype("<i8", copy=False),
-                  batch.signal[batch.start[0]:batch.start[-1]].astype("<i2", copy=False),
-                  batch.time_s.astype("<f8", copy=False), batch.trigger_id.astype("<i8", copy=False))
-        for k, arr in enumerate(arrays):
-            self._crc[k] = zlib.crc32(np.ascontiguousarray(arr), self._crc[k])
-
-    def hexdigest(self) -> str:
-        return "crc32:" + ",".join(f"{name}={crc:08x}" for name, crc in zip(self.NAMES, self._crc, strict=True))
-
-
 def content_fingerprint(raw_path, *, batch_size: int = DEFAULT_BATCH_SIZE, strict: bool = False) -> str:
     """The content fingerprint of a raw event file, as stored in the provenance of its event tables."""
-    from ..io.raw import open_raw
-
-    fingerprint = _Fingerprint()
-    with open_raw(raw_path, strict=strict) as reader:
-        for batch in reader.iter_batches(batch_size, with_truth=False):
-            fingerprint.update(batch)
-    return fingerprint.hexdigest()
+    return _content_fingerprint(raw_path, batch_size=batch_size, strict=strict)
 
 
 def output_name(raw_path, out_dir) -> Path:
