@@ -6,7 +6,8 @@ An :class:`EventBatch` holds ``N`` events in the same layout as the raw event fi
   rectangular region of interest on the chip;
 * ``start`` int64 ``(N + 1,)``: event ``i``'s pixels are ``signal[start[i]:start[i + 1]]``, row by row
   (rows outer, columns inner);
-* ``signal`` int16 ``(M,)``: pedestal-subtracted pulse heights, ADC counts;
+* ``signal`` int16 ``(M,)``: pulse heights, ADC counts, pedestal-subtracted unless ``pedestal_subtracted`` is
+  False (then they are the raw ADC values and a pixel map supplies the pedestals, ``docs/pixel-map-format.md``);
 * ``time_s`` float64 ``(N,)`` and ``trigger_id`` int64 ``(N,)``.
 
 Users with another data-acquisition format wrap their arrays in a few lines, for example from a list of 2-D
@@ -185,6 +186,9 @@ class EventBatch:
         Per-event simulation truth, each of length N.
     validate : bool
         Check the ragged layout (default True); raises :class:`EventBatchError` naming the first bad event.
+    pedestal_subtracted : bool
+        True (default): ``signal`` holds pedestal-subtracted pulse heights. False: raw ADC values, pedestals
+        included (the reconstruction then needs a pixel map with the pedestals).
     """
 
     roi: np.ndarray
@@ -197,6 +201,7 @@ class EventBatch:
     bad: np.ndarray | None = None
     truth: dict | None = None
     validate: bool = field(default=True, repr=False)
+    pedestal_subtracted: bool = True
 
     def __post_init__(self):
         roi = _as_array("roi", self.roi, np.int32, 2)
@@ -221,8 +226,11 @@ class EventBatch:
             if values.ndim != 1 or len(values) != n:
                 raise EventBatchError(f"truth '{key}' must be 1-D with N = {n} entries (got shape {values.shape})")
             truth[key] = values
+        if not isinstance(self.pedestal_subtracted, bool | np.bool_):
+            raise EventBatchError(f"'pedestal_subtracted' must be True or False (got {self.pedestal_subtracted!r})")
         for name, value in (("roi", roi), ("start", start), ("signal", signal), ("time_s", time_s),
-                            ("trigger_id", trigger_id), ("index", index), ("bad", bad), ("truth", truth)):
+                            ("trigger_id", trigger_id), ("index", index), ("bad", bad), ("truth", truth),
+                            ("pedestal_subtracted", bool(self.pedestal_subtracted))):
             object.__setattr__(self, name, value)
         if self.validate:
             indices, reasons = find_bad_events(roi, start, len(signal), self.grid)
@@ -235,7 +243,8 @@ class EventBatch:
 
     # ------------------------------------------------------------------ construction helpers
     @classmethod
-    def from_images(cls, images, origins, *, grid=None, time_s=None, trigger_id=None, truth=None):
+    def from_images(cls, images, origins, *, grid=None, time_s=None, trigger_id=None, truth=None,
+                    pedestal_subtracted=True):
         """Build a batch from per-event 2-D images.
 
         Parameters
@@ -245,7 +254,7 @@ class EventBatch:
         origins : array_like, shape (N, 2)
             ``(first_column, first_row)`` of each image on the chip.
         grid : HexGrid, optional
-        time_s, trigger_id, truth : optional, as for :class:`EventBatch`.
+        time_s, trigger_id, truth, pedestal_subtracted : optional, as for :class:`EventBatch`.
         """
         images = [np.asarray(img) for img in images]
         origins = np.asarray(origins, dtype=np.int64).reshape(-1, 2)
@@ -259,7 +268,7 @@ class EventBatch:
         start = np.concatenate([[0], np.cumsum(shapes[:, 0] * shapes[:, 1])])
         signal = np.concatenate([img.ravel() for img in images]) if images else np.zeros(0, np.int16)
         return cls(roi=roi, start=start, signal=signal, time_s=time_s, trigger_id=trigger_id,
-                   grid=grid or HexGrid(), truth=truth)
+                   grid=grid or HexGrid(), truth=truth, pedestal_subtracted=pedestal_subtracted)
 
     @classmethod
     def empty(cls, grid=None) -> EventBatch:
@@ -318,6 +327,7 @@ class EventBatch:
             roi=self.roi[positions], start=new_start, signal=signal, time_s=self.time_s[positions],
             trigger_id=self.trigger_id[positions], grid=self.grid, index=self.index[positions],
             bad=self.bad[positions], truth={k: v[positions] for k, v in self.truth.items()}, validate=False,
+            pedestal_subtracted=self.pedestal_subtracted,
         )
 
     def compact(self) -> EventBatch:
@@ -335,6 +345,8 @@ class EventBatch:
         grid = batches[0].grid
         if any(b.grid != grid for b in batches):
             raise EventBatchError("cannot concatenate batches of different chips (geometry differs)")
+        if any(b.pedestal_subtracted != batches[0].pedestal_subtracted for b in batches):
+            raise EventBatchError("cannot concatenate pedestal-subtracted batches with raw (not subtracted) ones")
         keys = set(batches[0].truth)
         if any(set(b.truth) != keys for b in batches):
             raise EventBatchError("cannot concatenate batches with different truth columns")
@@ -352,6 +364,7 @@ class EventBatch:
             bad=np.concatenate([b.bad for b in batches]),
             truth={k: np.concatenate([b.truth[k] for b in batches]) for k in keys},
             validate=False,
+            pedestal_subtracted=batches[0].pedestal_subtracted,
         )
 
     def __repr__(self):
@@ -362,5 +375,6 @@ class EventBatch:
         return (
             f"EventBatch({n} events, indices {int(self.index[0])}..{int(self.index[-1])}, "
             f"{len(self.signal)} pixels, ROI size {int(npix.min())}..{int(npix.max())} "
-            f"(mean {npix.mean():.0f}), {int(self.bad.sum())} bad, truth={sorted(self.truth) or None})"
+            f"(mean {npix.mean():.0f}), {int(self.bad.sum())} bad, truth={sorted(self.truth) or None}"
+            + ("" if self.pedestal_subtracted else ", not pedestal-subtracted") + ")"
         )

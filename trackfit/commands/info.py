@@ -2,8 +2,9 @@
 
 Dispatches on the file's root attribute ``trackfit_format``: a raw event file (geometry, events, time span, ROI
 sizes, pulse heights, energy scale, layout check), an event table (:meth:`EventTable.summary`: rows, status,
-energy scale, per-column statistics, provenance) or a calibration file (the calibration's own summary: each part
-with its runs). ``--json`` prints the same as JSON for each kind.
+energy scale, per-column statistics, provenance), a calibration file (the calibration's own summary: each part
+with its runs) or a pixel map (codes, noise and pedestal distributions, source runs). ``--json`` prints the same as
+JSON for each kind.
 """
 
 from __future__ import annotations
@@ -14,17 +15,18 @@ from pathlib import Path
 from ..cli import CommandError
 
 #: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
-KINDS = ("raw-events", "event-table", "calibration")
+KINDS = ("raw-events", "event-table", "calibration", "pixel-map")
 
 
 def register(subparsers):
     parser = subparsers.add_parser(
-        "info", help="summarise a raw event file, an event table or a calibration file",
+        "info", help="summarise a raw event file, an event table, a calibration file or a pixel map",
         description="Print what a trackfit file holds. Raw event files: geometry, event count, time span, "
         "ROI-size and pulse-height summaries, energy scale, and a check of every event's layout. Event tables: "
         "rows, status, energy scale (uncalibrated energies are marked), per-column min/max/mean/NaN and where "
-        "the table comes from. Calibration files: each part with its summary and input runs.")
-    parser.add_argument("file", help="a trackfit HDF5 file (raw events, event table or calibration)")
+        "the table comes from. Calibration files: each part with its summary and input runs. Pixel maps: counts of "
+        "each bad-pixel code, noise and pedestal distributions, samples and source runs.")
+    parser.add_argument("file", help="a trackfit HDF5 file (raw events, event table, calibration or pixel map)")
     parser.add_argument("--max-events", type=int, default=None, metavar="N",
                         help="summarise only the first N events (rows of a table) (default: all)")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
@@ -63,6 +65,11 @@ def run(args) -> int:
         print(json.dumps(summary.as_dict(), indent=2) if args.json else summary.as_text())
     elif kind == "event-table":
         _table(args)
+    elif kind == "pixel-map":
+        from ..io.pixelmap import read_pixel_map
+
+        pixel_map = read_pixel_map(args.file)
+        print(json.dumps(pixel_map.summary(), indent=2, default=float) if args.json else pixel_map.summary_text())
     else:
         _calibration(args)
     return 0

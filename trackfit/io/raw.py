@@ -19,7 +19,8 @@ from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 
-__all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION"]
+__all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION",
+           "TRIGGER_MODES"]
 
 FORMAT_NAME = "raw-events"
 FORMAT_VERSION = 1
@@ -38,7 +39,13 @@ _OTHER_KINDS = {
     "event-table": ": this is an event table, already reconstructed (summarise it with trackfit info, read it with "
                    "trackfit.read_table)",
     "calibration": ": this is a calibration file (made by trackfit calibrate), not a raw event file",
+    "pixel-map": ": this is a pixel map (made by trackfit pixel-map; give it to trackfit reconstruct --pixel-map), "
+                 "not a raw event file",
 }
+#: values of the optional ``/events`` attribute ``trigger_mode``: ``"self"`` (default when absent) - the chip
+#: triggered on its own signal (source or beam runs); ``"random"`` - random or periodic triggers without a source
+#: (pedestal runs: every pixel of every event is a noise sample)
+TRIGGER_MODES = ("self", "random")
 DEFAULT_BATCH_SIZE = 65_536
 
 
@@ -106,6 +113,14 @@ class RawEventWriter(PartialFileWriter):
         Chunk lengths of the per-event and the signal datasets.
     overwrite : bool
         Replace an existing file (default False: refuse).
+    pedestal_subtracted : bool, optional
+        Whether ``signal`` holds pedestal-subtracted pulse heights (the ``/events`` attribute of the same name).
+        Default: taken from the first appended batch (``EventBatch.pedestal_subtracted``); every batch must agree.
+    trigger_mode : {"self", "random"}
+        ``"random"`` marks a pedestal run (random triggers, no source); see :data:`TRIGGER_MODES`.
+
+    The two ``/events`` attributes are written only when they differ from the defaults (pedestal-subtracted,
+    self-triggered), so files of ordinary runs look exactly as before the attributes existed.
 
     Examples
     --------
@@ -118,9 +133,13 @@ class RawEventWriter(PartialFileWriter):
 
     def __init__(self, path, grid: HexGrid, *, compression: str = DEFAULT_COMPRESSION, run_info=None,
                  created_by=None, created_utc=None, chunk_events: int = 16_384, chunk_pixels: int = 262_144,
-                 overwrite=False):
+                 overwrite=False, pedestal_subtracted: bool | None = None, trigger_mode: str = "self"):
         if not isinstance(grid, HexGrid):
             raise TypeError(f"'grid' must be a HexGrid (got {type(grid).__name__})")
+        if trigger_mode not in TRIGGER_MODES:
+            raise ValueError(f"'trigger_mode' must be one of {TRIGGER_MODES} (got {trigger_mode!r})")
+        if pedestal_subtracted is not None and not isinstance(pedestal_subtracted, bool | np.bool_):
+            raise ValueError(f"'pedestal_subtracted' must be True, False or None (got {pedestal_subtracted!r})")
         self._filters = dataset_filter_options(compression)
         f = self._open(path, overwrite=overwrite, created_by=created_by, created_utc=created_utc)
         self.grid = grid
@@ -143,6 +162,12 @@ class RawEventWriter(PartialFileWriter):
                                       chunks=(chunk, *tail), **self._filters)
             events["start"].resize((1,))
             events["start"][0] = 0
+            if trigger_mode != "self":
+                events.attrs["trigger_mode"] = trigger_mode
+            self.trigger_mode = trigger_mode
+            self.pedestal_subtracted = None
+            if pedestal_subtracted is not None:
+                self._set_pedestal_subtracted(bool(pedestal_subtracted))
         except BaseException:
             self.abort()
             raise
@@ -150,12 +175,24 @@ class RawEventWriter(PartialFileWriter):
     def __len__(self):
         return self._n_events
 
+    def _set_pedestal_subtracted(self, value: bool) -> None:
+        self.pedestal_subtracted = value
+        if not value:
+            self._file["events"].attrs["pedestal_subtracted"] = False
+
     def append(self, batch: EventBatch) -> None:
         """Append the events of a batch (its truth columns go to ``/truth``)."""
         if self.closed:
             raise ValueError(f"writer for '{self.path}' is closed")
         if batch.grid != self.grid:
             raise ValueError(f"batch geometry {batch.grid} differs from the file's {self.grid}")
+        if self.pedestal_subtracted is None:
+            self._set_pedestal_subtracted(batch.pedestal_subtracted)
+        elif batch.pedestal_subtracted != self.pedestal_subtracted:
+            state = {True: "pedestal-subtracted", False: "raw (pedestal_subtracted=False)"}
+            raise ValueError(f"'{self.path}': the file holds {state[self.pedestal_subtracted]} signal but the batch "
+                             f"is {state[batch.pedestal_subtracted]}; build the batch with "
+                             f"pedestal_subtracted={self.pedestal_subtracted}")
         keys = sorted(batch.truth)
         if self._truth_keys is None and len(batch):
             self._truth_keys = keys
@@ -221,6 +258,10 @@ class RawEventReader:
         Root attributes (format, version, creator, creation time).
     truth_names : list of str
         Datasets of ``/truth`` (empty for measured data).
+    pedestal_subtracted : bool
+        ``/events`` attribute; True when absent (files written before it existed).
+    trigger_mode : str
+        ``/events`` attribute, one of :data:`TRIGGER_MODES`; ``"self"`` when absent.
     bad_events : list of (int, str)
         With ``strict=False``: malformed events met so far (index, reason), in file order; they are delivered as
         empty placeholder events with ``batch.bad`` set, so downstream tables keep one row per input event.
@@ -286,6 +327,17 @@ class RawEventReader:
             if ds.ndim != 1 + len(tail) or ds.shape[1:] != tail:
                 expected = "(N, 4)" if tail else "1-D"
                 raise self._error(f"expected shape {expected}, found {ds.shape}", dataset=path)
+        self.pedestal_subtracted = True
+        if "pedestal_subtracted" in events.attrs:
+            value = events.attrs["pedestal_subtracted"]
+            if not isinstance(value, bool | np.bool_) and not (isinstance(value, int | np.integer) and value in (0, 1)):
+                raise self._error(f"attribute 'pedestal_subtracted' must be true or false (1 or 0), found {value!r}",
+                                  dataset="/events")
+            self.pedestal_subtracted = bool(value)
+        self.trigger_mode = _decode(events.attrs.get("trigger_mode", "self"))
+        if self.trigger_mode not in TRIGGER_MODES:
+            raise self._error(f"attribute 'trigger_mode' must be one of {TRIGGER_MODES}, found {self.trigger_mode!r}",
+                              dataset="/events")
         self._roi = events["roi"]
         self._start = events["start"]
         self._signal = events["signal"]
@@ -348,8 +400,10 @@ class RawEventReader:
         return self._signal.compression or (next(iter(self._signal._filters), None))
 
     def __repr__(self):
+        extra = "" if self.pedestal_subtracted else ", not pedestal-subtracted"
+        extra += "" if self.trigger_mode == "self" else f", trigger_mode={self.trigger_mode!r}"
         return (f"RawEventReader('{self.path}', {self._n} events, {self._n_signal} pixels, "
-                f"grid={self.grid}, truth={self.truth_names or None})")
+                f"grid={self.grid}, truth={self.truth_names or None}{extra})")
 
     # ------------------------------------------------------------------ reading
     def _read_1d(self, ds, a, b, fill):
@@ -415,7 +469,7 @@ class RawEventReader:
             truth = {name: self._file["truth"][name][a:b] for name in self.truth_names}
         return EventBatch(roi=roi, start=new_start, signal=signal, time_s=time_s, trigger_id=trigger_id,
                           grid=self.grid, index=np.arange(a, b, dtype=np.int64), bad=bad, truth=truth,
-                          validate=False)
+                          validate=False, pedestal_subtracted=self.pedestal_subtracted)
 
     def iter_batches(self, batch_size: int = DEFAULT_BATCH_SIZE, *, start: int = 0, stop: int | None = None,
                      with_truth: bool = True, prefetch: bool = False):

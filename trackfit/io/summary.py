@@ -36,6 +36,8 @@ class RawSummary:
     truth_names: list
     bad_events: list = field(default_factory=list)
     file_problems: list = field(default_factory=list)
+    pedestal_subtracted: bool = True
+    trigger_mode: str = "self"
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -54,6 +56,10 @@ class RawSummary:
             f"events        {self.n_events}"
             + (f" ({self.n_scanned} scanned)" if self.n_scanned < self.n_events else ""),
             f"pixels        {self.n_pixels_total} ROI pixels in the file",
+            "signal        " + ("pedestal-subtracted pulse heights" if self.pedestal_subtracted
+                                else "raw ADC values, pedestals included (reconstruct with a pixel map)"),
+            "triggers      " + ("random, no source (pedestal run)" if self.trigger_mode == "random"
+                                else "self-triggered"),
             f"time span     {self.time_first_s:.6f} .. {self.time_last_s:.6f} s "
             f"({span:.3f} s, mean rate {rate:.1f} Hz)",
             f"ROI pixels    quantiles ({q}): {_fmt(self.roi_pixels_quantiles)}",
@@ -145,4 +151,6 @@ def summarize_raw(path, *, max_events: int | None = None, batch_size: int = DEFA
             truth_names=list(reader.truth_names),
             bad_events=[(int(i), why) for i, why in reader.bad_events],
             file_problems=list(reader.file_problems),
+            pedestal_subtracted=reader.pedestal_subtracted,
+            trigger_mode=reader.trigger_mode,
         )
