@@ -36,6 +36,12 @@ def register(subparsers) -> None:
     parser.add_argument("--polarization-angle-deg", type=float, default=None, metavar="A",
                         help="polarization angle in the detector frame, degrees from +x towards +y "
                         "(default: the config's source)")
+    parser.add_argument("--lab-pixels", metavar="LAB.toml",
+                        help="read the events out through a lab-like chip: per-pixel pedestals and noise, hot, dead "
+                        "and noisy pixels, optionally not pedestal-subtracted ([lab_pixels] table, "
+                        "trackfit.simulate.labpixels.LabPixelConfig); the chip truth goes to /pixel_truth")
+    parser.add_argument("--pedestal-run", action="store_true",
+                        help="write N random-trigger events without a source instead (each reads the whole chip)")
     parser.add_argument("--overwrite", action="store_true", help="replace an existing output file")
     parser.add_argument("--no-progress", action="store_true", help="do not show a progress bar")
     parser.set_defaults(func=_main)
@@ -68,9 +74,32 @@ def _main(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     design = args.preset if args.preset else Path(args.config).name
+    if args.lab_pixels or args.pedestal_run:
+        return _lab(args, config, design)
     with tqdm(total=args.n_events, unit=" events", desc="simulate", disable=args.no_progress) as bar:
         result = run(config, args.n_events, rng=args.seed, progress=bar.update, design=design)
     path = result.write(args.output, overwrite=args.overwrite)
     print(f"wrote {len(result.batch)} events to {path} ({result.n_converted} photons converted, "
           f"{result.n_not_triggered} did not trigger; detection efficiency {result.detection_efficiency:.4f})")
+    return 0
+
+
+def _lab(args, config, design) -> int:
+    from tqdm import tqdm
+
+    from ..simulate.labpixels import LabPixelConfig, simulate_lab_run, simulate_pedestal_run
+
+    readout = config.readout
+    lab = (LabPixelConfig.load(args.lab_pixels) if args.lab_pixels
+           else LabPixelConfig(noise_mean_adc=readout.noise_electrons / readout.electrons_per_adc))
+    if args.pedestal_run:
+        result = simulate_pedestal_run(lab, args.n_events, rng=args.seed, grid=config.grid)
+    else:
+        with tqdm(total=args.n_events, unit=" events", desc="simulate", disable=args.no_progress) as bar:
+            result = simulate_lab_run(config, lab, args.n_events, rng=args.seed, progress=bar.update, design=design)
+    path = result.write(args.output, overwrite=args.overwrite)
+    kind = "random-trigger (pedestal run)" if args.pedestal_run else "track"
+    print(f"wrote {len(result.batch)} {kind} events to {path} through a lab-like chip "
+          f"({lab.n_hot} hot, {lab.n_dead} dead, {lab.n_noisy} noisy pixels; "
+          f"{'pedestal-subtracted' if lab.pedestal_subtracted else 'raw ADC values with pedestals'})")
     return 0
