@@ -51,6 +51,13 @@ def register(subparsers):
     parser.add_argument("--print-settings", action=_PrintSettings,
                         help="print every setting with its default as a commented TOML settings file and exit "
                         "(save it, edit it, pass it to --config)")
+    parser.add_argument("--pixel-map", metavar="MAP.h5",
+                        help="pixel map (trackfit pixel-map): subtract its pedestals from files that are not "
+                        "pedestal-subtracted and ignore its hot, dead and noisy pixels (overrides the config's; "
+                        "default: the config's, none)")
+    parser.add_argument("--threshold-noise-rms", type=float, metavar="K",
+                        help="cut each pixel at K times its own noise from the pixel map instead of one ADC value "
+                        "(default: the config's threshold_noise_rms, 0 = off)")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
                         help="files reconstructed in parallel, one process each (default 1)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
@@ -131,6 +138,31 @@ def _scale_note(provenance) -> str:
     return f"energy scale {value:.6g} ADC counts per keV from the {source}"
 
 
+def _with_pixel_map(config, args):
+    """The config with --pixel-map and --threshold-noise-rms applied; the map is read once here to check it."""
+    from dataclasses import replace
+
+    from ..io.pixelmap import read_pixel_map
+
+    changes = {}
+    if args.pixel_map is not None:
+        if not Path(args.pixel_map).exists():
+            raise FileNotFoundError(f"--pixel-map: pixel map '{args.pixel_map}' does not exist")
+        changes["pixel_map"] = str(Path(args.pixel_map).resolve())
+    if args.threshold_noise_rms is not None:
+        if args.threshold_noise_rms < 0:
+            raise CommandError(f"--threshold-noise-rms must be >= 0 (got {args.threshold_noise_rms:g})")
+        changes["threshold_noise_rms"] = args.threshold_noise_rms
+    try:
+        config = replace(config, **changes)
+    except ValueError as err:
+        raise CommandError(str(err).replace("'threshold_noise_rms'", "--threshold-noise-rms")
+                           .replace("a 'pixel_map'", "a pixel map (--pixel-map)")) from None
+    if config.pixel_map:
+        read_pixel_map(config.pixel_map)  # a bad map is reported before any file is touched
+    return config
+
+
 def run(args) -> int:
     from ..io.raw import open_raw
     from ..recon import ReconConfig
@@ -142,6 +174,7 @@ def run(args) -> int:
     if args.threads is not None and args.threads < 1:
         raise CommandError(f"--threads must be >= 1 (got {args.threads})")
     config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
+    config = _with_pixel_map(config, args)
     jobs = _jobs(args)
     totals = []
     for raw, _ in jobs:

@@ -17,7 +17,7 @@ import numpy as np
 from .._jit import jit
 from .status import Status
 
-__all__ = ["reconstruct_range", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE"]
+__all__ = ["reconstruct_range", "subtract_pedestals", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE"]
 
 #: column order of the float64 output array of the kernel
 FLOAT_COLUMNS = ("pulse_height", "energy_kev", "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad",
@@ -84,8 +84,43 @@ def _moments_about(px, py, w, n, cx, cy):
 
 
 @jit
-def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch_mm, row_pitch_mm, x0_mm, y0_mm,
-                      parity, threshold, min_pixels, r_inner, r_outer, length_mm, centre_on_conversion,
+def subtract_pedestals(lo, hi, roi, start, signal, bad, pedestal, n_columns, n_rows, out):
+    """``out = round(signal - pedestal of the pixel)`` for events ``lo <= i < hi``, clipped to int16.
+
+    Parameters
+    ----------
+    roi : int32 (N, 4); start : int64 (N + 1,); signal : int16 (M,); bad : bool (N,)
+    pedestal : float64 (n_rows * n_columns,)
+        Per-pixel pedestal, row by row.
+    n_columns, n_rows : int
+    out : int16 (M,)
+        Written for the events that are well formed and on the chip; left untouched for the others (they are
+        flagged as malformed by :func:`reconstruct_range`). Rounding is half to even (``numpy.rint``).
+    """
+    for i in range(lo, hi):
+        s0 = start[i]
+        c0 = roi[i, 0]
+        r0 = roi[i, 1]
+        nc = roi[i, 2]
+        nr = roi[i, 3]
+        if (bad[i] or nc < 0 or nr < 0 or nc * nr != start[i + 1] - s0 or s0 < 0 or start[i + 1] > signal.size
+                or c0 < 0 or r0 < 0 or c0 + nc > n_columns or r0 + nr > n_rows):
+            continue
+        for rr in range(nr):
+            base = (r0 + rr) * n_columns + c0
+            k0 = s0 + rr * nc
+            for cc in range(nc):
+                v = np.rint(signal[k0 + cc] - pedestal[base + cc])
+                if v > 32767.0:
+                    v = 32767.0
+                elif v < -32768.0:
+                    v = -32768.0
+                out[k0 + cc] = np.int16(v)
+
+
+@jit
+def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_columns, pitch_mm, row_pitch_mm, x0_mm,
+                      y0_mm, parity, threshold, min_pixels, r_inner, r_outer, length_mm, centre_on_conversion,
                       counts_per_kev, saturation_adc, out_f, out_i):
     """Reconstruct events ``lo <= i < hi`` of a batch into rows of ``out_f`` / ``out_i``.
 
@@ -98,8 +133,11 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         match their pixel range, or whose range leaves ``signal``, are flagged as malformed and not read.
     mask : uint8 (n_rows * n_columns,) or empty
         Chip-sized bad-pixel map, row by row (1 = ignore the pixel); empty for no mask.
+    thresholds : int32 (n_rows * n_columns,) or empty
+        Chip-sized per-pixel zero suppression, row by row: a pixel is hit when its signal > its entry; empty to
+        use ``threshold`` for every pixel.
     mask_columns : int
-        Columns of the chip (row stride of ``mask``).
+        Columns of the chip (row stride of ``mask`` and ``thresholds``).
     pitch_mm, row_pitch_mm, x0_mm, y0_mm : float
         Pixel centre of (column, row) = (pitch * (column + 0.5 * shifted) - x0, row_pitch * row - y0).
     parity : int
@@ -130,6 +168,8 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
     py = np.empty(max_area, np.float64)
     pq = np.empty(max_area, np.float64)
     use_mask = mask.size > 0
+    use_thresholds = thresholds.size > 0
+    chip_size = mask.size if use_mask else thresholds.size
     nan = np.nan
     inv_scale = 1.0 / length_mm  # weights exp(-D * inv_scale), as in the reference
 
@@ -152,16 +192,25 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, mask_columns, pitch
         out_i[i, _I_NCLUS] = 0
         out_i[i, _I_PEAK] = 0
         out_i[i, _I_NCONV] = 0
-        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or s0 < 0 or start[i + 1] > signal.size or (use_mask and (
-                c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > mask.size)):
+        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or s0 < 0 or start[i + 1] > signal.size or (
+                (use_mask or use_thresholds) and (
+                c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > chip_size)):
             out_i[i, _I_STATUS] = _MALFORMED
             continue
 
-        # ---- cleaning: zero suppression (branch-free scan), bad-pixel mask
+        # ---- cleaning: zero suppression (branch-free scan; one threshold or one per pixel), bad-pixel mask
         n_hit = 0
-        for k in range(area):
-            hits[n_hit] = k
-            n_hit += signal[s0 + k] > threshold
+        if use_thresholds:
+            for rr in range(nr):
+                base = (r0 + rr) * mask_columns + c0
+                k0 = rr * nc
+                for cc in range(nc):
+                    hits[n_hit] = k0 + cc
+                    n_hit += signal[s0 + k0 + cc] > thresholds[base + cc]
+        else:
+            for k in range(area):
+                hits[n_hit] = k
+                n_hit += signal[s0 + k] > threshold
         if use_mask and n_hit > 0:
             kept = 0
             for j in range(n_hit):

@@ -42,7 +42,7 @@ def _wrap(angle):
     return angle
 
 
-def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dict:
+def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False, thresholds=None, pedestal=None) -> dict:
     """Reconstruct one event.
 
     Parameters
@@ -56,6 +56,11 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
         True for bad pixels.
     bad : bool
         The event is a malformed-input placeholder.
+    thresholds : ndarray of float, shape grid.shape, optional
+        Per-pixel threshold (a pixel is hit when its signal is above it); default ``config.threshold_adc``.
+    pedestal : ndarray of float, shape grid.shape, optional
+        Subtracted from the signal first, rounded half to even and clipped to int16 (raw files that are not
+        pedestal-subtracted).
 
     Returns
     -------
@@ -71,7 +76,12 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
         return out
     c0, r0, nc, nr = (int(v) for v in roi)
     image = np.asarray(signal).reshape(nr, nc)
-    hit = image > math.floor(config.threshold_adc)
+    if pedestal is not None:
+        image = np.clip(np.rint(image - pedestal[r0:r0 + nr, c0:c0 + nc]), -32768, 32767).astype(np.int16)
+    if thresholds is None:
+        hit = image > math.floor(config.threshold_adc)
+    else:
+        hit = image > np.floor(thresholds[r0:r0 + nr, c0:c0 + nc])
     rows = np.arange(r0, r0 + nr)
     if mask is not None:
         hit &= ~mask[r0:r0 + nr, c0:c0 + nc]
@@ -165,14 +175,32 @@ def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False) -> dic
 
 
 def reconstruct_batch_reference(batch, config) -> dict[str, np.ndarray]:
-    """:func:`reconstruct_event` over every event of a batch (a Python loop: slow, for tests and benchmarks)."""
+    """:func:`reconstruct_event` over every event of a batch (a Python loop: slow, for tests and benchmarks).
+
+    With ``config.pixel_map``: the map's masked pixels join ``bad_pixels``, its pedestals are subtracted when the
+    batch is not pedestal-subtracted, and ``threshold_noise_rms`` times its noise is each pixel's threshold.
+    """
     mask = None
     if config.bad_pixels:
         mask = config.bad_pixel_map(batch.grid).reshape(batch.grid.shape).astype(bool)
+    thresholds = pedestal = None
+    if config.pixel_map:
+        from ..io.pixelmap import read_pixel_map
+
+        pixel_map = read_pixel_map(config.pixel_map)
+        pixel_map.check_grid(batch.grid, "the batch")
+        mask = pixel_map.masked if mask is None else (mask | pixel_map.masked)
+        if not batch.pedestal_subtracted:
+            pedestal = pixel_map.pedestal_for_subtraction()
+        if config.threshold_noise_rms > 0:
+            thresholds = config.threshold_noise_rms * pixel_map.noise_for_threshold()
+    elif not batch.pedestal_subtracted:
+        raise ValueError("the batch is not pedestal-subtracted: give a pixel map")
     rows = []
     for i in range(len(batch)):
         sig = batch.signal[batch.start[i]:batch.start[i + 1]]
-        rows.append(reconstruct_event(sig, batch.roi[i], batch.grid, config, mask=mask, bad=bool(batch.bad[i])))
+        rows.append(reconstruct_event(sig, batch.roi[i], batch.grid, config, mask=mask, bad=bool(batch.bad[i]),
+                                      thresholds=thresholds, pedestal=pedestal))
     names = FLOAT_COLUMNS + INT_COLUMNS
     return {name: np.array([r[name] for r in rows], dtype=np.float64 if name in FLOAT_COLUMNS else np.int64)
             for name in names}

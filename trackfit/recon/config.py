@@ -12,8 +12,9 @@ Change a setting with :func:`dataclasses.replace` (handy when tuning cuts in a n
 from __future__ import annotations
 
 import math
+import os
 import tomllib
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 
 import numpy as np
@@ -97,12 +98,23 @@ class ReconConfig:
     bad_pixels : tuple of (column, row)
         Pixels to ignore (hot or dead). The constructor also accepts a chip-sized boolean array indexed
         ``[row, column]`` (True = bad); it is stored as the list of its pixels, sorted.
+    pixel_map : str
+        Path of a pixel map (``docs/pixel-map-format.md``, made by ``trackfit pixel-map``); empty for none. With a
+        map, raw files that are not pedestal-subtracted get each pixel's pedestal subtracted (rounded to whole
+        ADC counts), and its hot, dead and noisy pixels are ignored (together with ``bad_pixels``). In a TOML file
+        a relative path is taken relative to the file's folder. The map must come from the same chip as the data.
+    threshold_noise_rms : float
+        0 (default): every pixel is cut at ``threshold_adc``. > 0 (needs ``pixel_map``): each pixel is hit when its
+        signal is > ``threshold_noise_rms`` times its own noise from the map (pixels the map could not judge use
+        the chip's median noise).
 
     Examples
     --------
     >>> config = ReconConfig(threshold_adc=15, bad_pixels=[(10, 20)])
     >>> ReconConfig.from_toml(config.to_toml()) == config
     True
+    >>> ReconConfig(pixel_map="chip07_map.h5", threshold_noise_rms=5).threshold_noise_rms
+    5.0
     """
 
     threshold_adc: float = 10.0
@@ -114,6 +126,8 @@ class ReconConfig:
     counts_per_kev: float | None = None
     saturation_adc: int = 32767
     bad_pixels: tuple = ()
+    pixel_map: str = ""
+    threshold_noise_rms: float = 0.0
 
     def __post_init__(self):
         def number(name, value, *, integer=False):
@@ -148,6 +162,15 @@ class ReconConfig:
             raise ValueError(f"'counts_per_kev' must be > 0 (got {self.counts_per_kev})")
         number("saturation_adc", self.saturation_adc, integer=True)
         object.__setattr__(self, "bad_pixels", self._normalise_bad_pixels(self.bad_pixels))
+        if isinstance(self.pixel_map, os.PathLike):
+            object.__setattr__(self, "pixel_map", os.fspath(self.pixel_map))
+        if not isinstance(self.pixel_map, str):
+            raise ValueError(f"'pixel_map' must be the path of a pixel-map file, or empty (got {self.pixel_map!r})")
+        if number("threshold_noise_rms", self.threshold_noise_rms) < 0:
+            raise ValueError(f"'threshold_noise_rms' must be >= 0 (got {self.threshold_noise_rms})")
+        if self.threshold_noise_rms > 0 and not self.pixel_map:
+            raise ValueError(f"'threshold_noise_rms' = {self.threshold_noise_rms:g} needs a 'pixel_map' with the "
+                             "noise of each pixel")
 
     @staticmethod
     def _normalise_bad_pixels(value) -> tuple:
@@ -315,10 +338,14 @@ class ReconConfig:
 
     @classmethod
     def read_toml(cls, path) -> ReconConfig:
+        """Read a TOML file; a relative ``pixel_map`` is taken relative to the file's folder."""
         path = Path(path)
         if not path.exists():
             raise FileNotFoundError(f"config file '{path}' does not exist")
-        return cls.from_toml(path.read_text(), source=f"config file '{path}'")
+        config = cls.from_toml(path.read_text(), source=f"config file '{path}'")
+        if config.pixel_map and not Path(config.pixel_map).is_absolute():
+            config = replace(config, pixel_map=str(path.parent / config.pixel_map))
+        return config
 
     def write_toml(self, path) -> Path:
         path = Path(path)

@@ -24,8 +24,9 @@ from ..io.compression import DEFAULT_COMPRESSION
 from ..io.energy_label import SCALE_KEY, SOURCE_KEY
 from ..io.fingerprint import RawFingerprint as _Fingerprint
 from ..io.fingerprint import content_fingerprint as _content_fingerprint
+from ..io.pixelmap import read_pixel_map
 from ..io.table import EventTable, TableWriter
-from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range
+from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range, subtract_pedestals
 from .config import ReconConfig
 
 __all__ = ["reconstruct", "reconstruct_file", "content_fingerprint", "TABLE_COLUMNS", "TRUTH_PREFIX",
@@ -70,39 +71,77 @@ def _as_config(config) -> ReconConfig:
 
 
 class _Prepared:
-    """Kernel arguments derived once from a config, a chip and the energy scale of the run."""
+    """Kernel arguments derived once from a config, a chip, the energy scale of the run and the config's pixel map."""
 
-    def __init__(self, config: ReconConfig, grid: HexGrid, counts_per_kev: float | None = None):
+    def __init__(self, config: ReconConfig, grid: HexGrid, counts_per_kev: float | None = None, *,
+                 data: str = "the batch"):
         self.config = config
         self.grid = grid
+        self.data = data
         self.counts_per_kev = float(config.energy_scale()[0] if counts_per_kev is None else counts_per_kev)
         self.mask = config.bad_pixel_map(grid)
+        self.thresholds = np.zeros(0, np.int32)
+        self.pedestal = None
+        self.pixel_map = None
+        if config.pixel_map:
+            self.pixel_map = read_pixel_map(config.pixel_map)
+            self.pixel_map.check_grid(grid, data)
+            masked = self.pixel_map.masked.ravel().astype(np.uint8)
+            self.mask = masked if not self.mask.size else np.maximum(self.mask, masked)
+            self.pedestal = np.ascontiguousarray(self.pixel_map.pedestal_for_subtraction().ravel())
+            if config.threshold_noise_rms > 0:
+                thresholds = np.floor(config.threshold_noise_rms * self.pixel_map.noise_for_threshold().ravel())
+                self.thresholds = np.clip(thresholds, -1, 32767).astype(np.int32)
         parity = 1 if grid.shifted_rows == "odd" else 0
         unshifted_row = 1 - parity  # a row that is not shifted: its column 0 sits at x = -x0
         x_first, _ = grid.pixel_centre_mm(0, unshifted_row)
         _, y_first = grid.pixel_centre_mm(0, 0)
         self.args = (
-            self.mask, grid.n_columns, grid.pitch_mm, grid.row_pitch_mm, -float(x_first), -float(y_first), parity,
-            int(np.floor(config.threshold_adc)), config.min_pixels, config.start_search_inner_rms,
-            config.start_search_outer_rms,
+            self.mask, self.thresholds, grid.n_columns, grid.pitch_mm, grid.row_pitch_mm, -float(x_first),
+            -float(y_first), parity, int(np.floor(config.threshold_adc)), config.min_pixels,
+            config.start_search_inner_rms, config.start_search_outer_rms,
             config.second_pass_length_mm, config.second_pass_centre == "conversion_point", self.counts_per_kev,
             config.saturation_adc,
         )
 
-    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None):
-        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute)."""
-        n = len(batch)
-        out_f = np.empty((n, len(FLOAT_COLUMNS)), np.float64)
-        out_i = np.empty((n, len(INT_COLUMNS)), np.int64)
-        common = (batch.roi, batch.start, batch.signal, batch.bad, *self.args, out_f, out_i)
+    def check_pedestals(self, pedestal_subtracted: bool) -> None:
+        """Refuse signal before pedestal subtraction when there is no pixel map to subtract with."""
+        if not pedestal_subtracted and self.pedestal is None:
+            raise ValueError(f"{self.data} holds raw ADC values (pedestal_subtracted = false): give a pixel map "
+                             "with the pedestals (ReconConfig.pixel_map, or --pixel-map on the command line), "
+                             "measured with `trackfit pixel-map`")
+
+    def provenance(self) -> dict:
+        """Entries naming the pixel map, for the event table."""
+        if self.pixel_map is None:
+            return {}
+        return {"pixel_map_name": Path(self.config.pixel_map).name,
+                "pixel_map_path": str(Path(self.config.pixel_map).resolve()),
+                "pixel_map_fingerprint": self.pixel_map.fingerprint}
+
+    def _split(self, kernel, n, common, threads, pool):
         if threads <= 1 or n < 2 * threads or pool is None:
-            reconstruct_range(0, n, *common)
+            kernel(0, n, *common)
         else:
             edges = np.linspace(0, n, 4 * threads + 1).astype(np.int64)  # small pieces balance the load
-            futures = [pool.submit(reconstruct_range, int(a), int(b), *common)
+            futures = [pool.submit(kernel, int(a), int(b), *common)
                        for a, b in zip(edges[:-1], edges[1:], strict=True)]
             for future in futures:
                 future.result()
+
+    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None):
+        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute)."""
+        n = len(batch)
+        self.check_pedestals(batch.pedestal_subtracted)
+        signal = batch.signal
+        if not batch.pedestal_subtracted:
+            signal = batch.signal.copy()
+            self._split(subtract_pedestals, n, (batch.roi, batch.start, batch.signal, batch.bad, self.pedestal,
+                                                self.grid.n_columns, self.grid.n_rows, signal), threads, pool)
+        out_f = np.empty((n, len(FLOAT_COLUMNS)), np.float64)
+        out_i = np.empty((n, len(INT_COLUMNS)), np.int64)
+        common = (batch.roi, batch.start, signal, batch.bad, *self.args, out_f, out_i)
+        self._split(reconstruct_range, n, common, threads, pool)
         return out_f, out_i
 
 
@@ -180,12 +219,14 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1, run_info=No
     threads = max(1, int(threads))
     scale = config.energy_scale(run_info)
     prepared = _Prepared(config, batch.grid, scale[0])
+    prepared.check_pedestals(batch.pedestal_subtracted)
     if threads > 1:
         with ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") as pool:
             out_f, out_i = prepared.run(batch, threads, pool)
     else:
         out_f, out_i = prepared.run(batch)
-    return EventTable(_columns(batch, out_f, out_i), _base_provenance(config, batch.grid, scale))
+    return EventTable(_columns(batch, out_f, out_i),
+                      {**_base_provenance(config, batch.grid, scale), **prepared.provenance()})
 
 
 def content_fingerprint(raw_path, *, batch_size: int = DEFAULT_BATCH_SIZE, strict: bool = False) -> str:
@@ -263,14 +304,17 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
 
     with open_raw(raw_path, strict=strict) as reader:
         scale = config.energy_scale(reader.run_info, path=raw_path)
-        prepared = _Prepared(config, reader.grid, scale[0])
+        prepared = _Prepared(config, reader.grid, scale[0], data=f"raw file '{raw_path}'")
+        prepared.check_pedestals(reader.pedestal_subtracted)
         provenance = _base_provenance(config, reader.grid, scale)
+        provenance.update(prepared.provenance())
         stat = raw_path.stat()
         provenance.update({
             "input_name": raw_path.name,
             "input_path": str(raw_path.resolve()),
             "input_size_bytes": int(stat.st_size),
             "input_n_events": len(reader),
+            "input_pedestal_subtracted": bool(reader.pedestal_subtracted),
             "batch_size": int(batch_size),
         })
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
