@@ -24,7 +24,7 @@ import sys
 from collections.abc import Mapping
 
 #: subcommand modules, in the order ``trackfit --help`` lists them
-COMMAND_MODULES = ("info", "show", "simulate", "reconstruct", "calibrate", "polarization")
+COMMAND_MODULES = ("info", "show", "simulate", "pixel_map", "reconstruct", "calibrate", "polarization")
 
 
 class CommandError(Exception):
