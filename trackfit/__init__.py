@@ -10,7 +10,8 @@ What to use when
   :class:`ReconConfig`.
 * ``trackfit.analysis`` - selections, line fits, gain maps, Stokes parameters, MDP, modulation factor, spurious
   modulation, calibration files.
-* ``trackfit.simulate`` - the photoelectron track simulator (presets, configs, runs).
+* ``trackfit.pixels`` - pixel pedestals, noise and bad pixels measured from raw files (pixel maps).
+* ``trackfit.simulate`` - the photoelectron track simulator (presets, configs, runs, lab-like chips).
 * ``trackfit.tuning`` - sweeps of reconstruction settings and cuts (quality factor, residual modulation).
 * ``trackfit.plotting`` - event displays.
 
@@ -33,7 +34,7 @@ _EXPORTS = {
     "EventTable": "io.table", "TableFormatError": "io.table", "read_table": "io.table", "write_table": "io.table",
     "ReconConfig": "recon", "reconstruct": "recon", "reconstruct_file": "recon",
 }
-_LAZY_SUBMODULES = ("analysis", "simulate", "tuning", "plotting", "recon", "io", "events", "hexgrid")
+_LAZY_SUBMODULES = ("analysis", "simulate", "tuning", "plotting", "recon", "io", "events", "hexgrid", "pixels")
 
 
 def __getattr__(name):

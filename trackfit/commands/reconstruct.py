@@ -180,6 +180,9 @@ def run(args) -> int:
     for raw, _ in jobs:
         with open_raw(raw, strict=args.strict) as reader:
             totals.append(len(reader))
+            if not reader.pedestal_subtracted and not config.pixel_map:
+                raise CommandError(f"'{raw}' holds raw ADC values (pedestal_subtracted = false): give a pixel map "
+                                   "with the pedestals, --pixel-map MAP.h5 (made by `trackfit pixel-map`)")
     workers = min(args.workers, len(jobs))
     threads = args.threads if args.threads is not None else ((os.cpu_count() or 1) if workers == 1 else 1)
     options = {"threads": threads, "strict": args.strict, "overwrite": args.overwrite}

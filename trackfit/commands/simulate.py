@@ -87,19 +87,20 @@ def _main(args: argparse.Namespace) -> int:
 def _lab(args, config, design) -> int:
     from tqdm import tqdm
 
-    from ..simulate.labpixels import LabPixelConfig, simulate_lab_run, simulate_pedestal_run
+    from ..simulate.labpixels import LabPixelConfig, simulate_lab_run, write_pedestal_run
 
     readout = config.readout
     lab = (LabPixelConfig.load(args.lab_pixels) if args.lab_pixels
            else LabPixelConfig(noise_mean_adc=readout.noise_electrons / readout.electrons_per_adc))
     if args.pedestal_run:
-        result = simulate_pedestal_run(lab, args.n_events, rng=args.seed, grid=config.grid)
+        path = write_pedestal_run(args.output, lab, args.n_events, rng=args.seed, grid=config.grid,
+                                  overwrite=args.overwrite)
     else:
         with tqdm(total=args.n_events, unit=" events", desc="simulate", disable=args.no_progress) as bar:
             result = simulate_lab_run(config, lab, args.n_events, rng=args.seed, progress=bar.update, design=design)
-    path = result.write(args.output, overwrite=args.overwrite)
+        path = result.write(args.output, overwrite=args.overwrite)
     kind = "random-trigger (pedestal run)" if args.pedestal_run else "track"
-    print(f"wrote {len(result.batch)} {kind} events to {path} through a lab-like chip "
+    print(f"wrote {args.n_events} {kind} events to {path} through a lab-like chip "
           f"({lab.n_hot} hot, {lab.n_dead} dead, {lab.n_noisy} noisy pixels; "
           f"{'pedestal-subtracted' if lab.pedestal_subtracted else 'raw ADC values with pedestals'})")
     return 0

@@ -89,10 +89,12 @@ def classify_pixels(grid: HexGrid, *, n_samples, noise_adc, noise_error_adc, n_a
     live = judged & ~constant & (outside == 0) & np.isfinite(noise)
     chip_noise = float(np.median(noise[live])) if live.any() else 0.0
 
-    # dead: constant where the neighbours are alive
+    # dead: constant where the neighbours are alive - unless most pixels are constant (zero-suppressed data, where
+    # "constant" means "quiet", and dead pixels cannot be told apart)
     neighbours = neighbour_median(grid, noise, judged)
     alive_around = np.nan_to_num(neighbours, nan=-1.0) >= settings.dead_neighbour_fraction * chip_noise
-    dead = judged & ((constant & alive_around & (chip_noise > 0)) | (outside < 0))
+    mostly_constant = np.count_nonzero(constant & judged) > 0.5 * max(1, np.count_nonzero(judged))
+    dead = judged & ((constant & alive_around & (chip_noise > 0) & ~mostly_constant) | (outside < 0))
 
     # hot: binomial tail against the pooled occupancy of the other pixels
     p_floor = float(stats.norm.sf(settings.occupancy_noise_rms))

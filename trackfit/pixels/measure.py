@@ -1,7 +1,7 @@
 """Measure a pixel map from raw event files, streaming (``trackfit pixel-map``).
 
 1. When the files are not pedestal-subtracted, a first pass keeps the first ``reference_samples`` values of every
-   pixel; the centre of the shortest interval holding a quarter of them is a coarse pedestal that centres the
+   pixel; their 5 % quantile plus 1.645 times the chip's typical noise is a coarse pedestal that centres the
    histograms of the second pass (robust to track charge, which always lies above the pedestal).
 2. The second pass histograms the noise samples of every pixel relative to that reference: in pedestal runs
    (``trigger_mode = "random"``) every pixel of every event; in self-triggered runs the pixels farther than
@@ -35,7 +35,7 @@ from .robust import (
     count_above,
     histogram_median_mad,
     histogram_quantile,
-    shortest_interval_centre,
+    lower_quantile,
     small_sample_factor,
 )
 from .settings import PixelMapSettings
@@ -159,13 +159,15 @@ def measure_pixel_map(raw_paths, settings: PixelMapSettings | None = None, *, pr
             for _, batch in inputs.batches(batch_pixels, update):
                 _kernels.collect_reference_samples(0, len(batch), batch.roi, batch.start, batch.signal, batch.bad,
                                                    grid.n_columns, grid.n_rows, store, count)
-            reference = shortest_interval_centre(store, count)
-            sampled = np.isfinite(reference)
-            reference[~sampled] = np.median(reference[sampled]) if sampled.any() else 0.0
+            low = lower_quantile(store, count, 0.05)
+            sampled = np.isfinite(low)
             stored = np.minimum(count, settings.reference_samples)
-            kept = np.arange(settings.reference_samples)[None, :] < stored[:, None]
-            chip_noise = clipped_noise((store - reference[:, None])[kept])
+            kept = (np.arange(settings.reference_samples)[None, :] < stored[:, None]) & sampled[:, None]
+            chip_noise = clipped_noise((store - np.where(sampled, low, 0.0)[:, None])[kept])
             del store
+            # the 5 % quantile of Gaussian noise lies 1.645 sigma below its median (scipy.stats.norm.ppf(0.05))
+            reference = low + 1.6449 * chip_noise
+            reference[~sampled] = np.median(reference[sampled]) if sampled.any() else 0.0
         reference = np.ascontiguousarray(np.rint(reference), dtype=np.int32)
         bin_width = max(1, int(math.floor(chip_noise / 2.0)))
         n_regular = settings.histogram_bins - 2
@@ -196,16 +198,21 @@ def measure_pixel_map(raw_paths, settings: PixelMapSettings | None = None, *, pr
     root_n = np.sqrt(np.where(n > 0, n, np.nan))
     pedestal_error = MEDIAN_STANDARD_ERROR * noise / root_n
     noise_error = SIGMA_STANDARD_ERROR * noise / root_n
-    threshold_rel = pedestal + settings.occupancy_noise_rms * noise - reference
+    lower, _ = histogram_quantile(hist, first_edge, bin_width, 0.25)
+    upper, upper_outside = histogram_quantile(hist, first_edge, bin_width, 0.75)
+    # the occupancy threshold takes the narrower of the noise and the lower half-width: spikes of a hot pixel
+    # widen only the upper half of its distribution (the lower quartile of Gaussian noise is 0.6745 sigma below)
+    lower_width = (median_rel - lower) / 0.6745
+    occupancy_noise = np.where(constant, 0.0, np.fmin(noise, lower_width))
+    threshold_rel = pedestal + settings.occupancy_noise_rms * occupancy_noise - reference
     n_above = count_above(hist, first_edge, bin_width, threshold_rel)
+    # a pixel whose values mostly lie above the range fires in most samples: count those (a lower bound)
+    n_above = np.where(outside > 0, hist[:, -1], n_above)
     # a threshold beyond the histogram range (noise above about range / occupancy_noise_rms) cannot be counted:
     # every value above the range is counted instead (an upper bound) and the pixel is judged by its noise only
     occupancy_known = threshold_rel < first_edge - 0.5 + n_regular * bin_width
-    lower, _ = histogram_quantile(hist, first_edge, bin_width, 0.25)
-    upper, upper_outside = histogram_quantile(hist, first_edge, bin_width, 0.75)
     with np.errstate(invalid="ignore", divide="ignore"):
         quartile_ratio = np.where(upper_outside > 0, np.inf, (upper - median_rel) / (median_rel - lower))
-    with np.errstate(invalid="ignore", divide="ignore"):
         occupancy = np.where(n > 0, n_above / np.where(n > 0, n, 1), np.nan)
     shape = grid.shape
     code, statistics = classify_pixels(

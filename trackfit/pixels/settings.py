@@ -47,7 +47,7 @@ class PixelMapSettings:
         this fraction of the chip's median noise. Default 0.5.
     reference_samples : int
         Samples per pixel kept by the first pass over files that are not pedestal-subtracted (coarse pedestal that
-        centres the histograms). Default 32.
+        centres the histograms: their 5 % quantile). Default 64.
     histogram_bins : int
         Bins per pixel of the value histograms (two of them collect the values below and above the range).
         Default 96.
@@ -68,7 +68,7 @@ class PixelMapSettings:
     noisy_spread_rms: float = 8.0
     noisy_significance: float = 4.0
     dead_neighbour_fraction: float = 0.5
-    reference_samples: int = 32
+    reference_samples: int = 64
     histogram_bins: int = 96
 
     def __post_init__(self):
@@ -94,7 +94,7 @@ class PixelMapSettings:
             ("noisy_spread_rms", self.noisy_spread_rms > 0, "> 0"),
             ("noisy_significance", self.noisy_significance >= 0, ">= 0"),
             ("dead_neighbour_fraction", 0 <= self.dead_neighbour_fraction <= 1, "between 0 and 1"),
-            ("reference_samples", 4 <= self.reference_samples <= 4096, "between 4 and 4096"),
+            ("reference_samples", 8 <= self.reference_samples <= 4096, "between 8 and 4096"),
             ("histogram_bins", 16 <= self.histogram_bins <= 4096, "between 16 and 4096"),
         ]
         for name, ok, requirement in checks:

@@ -44,7 +44,7 @@ from ..io.raw import RawEventWriter, open_raw
 from .config import ConfigError, SimConfig
 
 __all__ = ["LabPixelConfig", "LabChip", "LabRun", "draw_lab_chip", "lab_readout", "simulate_lab_run",
-           "simulate_pedestal_run", "read_pixel_truth", "PIXEL_TRUTH"]
+           "simulate_pedestal_run", "write_pedestal_run", "read_pixel_truth", "PIXEL_TRUTH"]
 
 #: datasets of the ``/pixel_truth`` group (chip-sized, ``[row, column]``) -> meaning
 PIXEL_TRUTH = {
@@ -405,9 +405,30 @@ def simulate_lab_run(config: SimConfig, lab: LabPixelConfig | LabChip, n_events:
                   _readout_state=state)
 
 
+def _pedestal_frames(chip: LabChip, first: int, n_events: int, rate_hz: float) -> EventBatch:
+    """Noise-free charge of ``n_events`` random-trigger frames (every pixel of the chip, zero charge)."""
+    grid = chip.grid
+    roi = np.tile(np.array([0, 0, grid.n_columns, grid.n_rows], np.int32), (n_events, 1))
+    start = np.arange(n_events + 1, dtype=np.int64) * grid.n_pixels
+    index = np.arange(first, first + n_events, dtype=np.int64)
+    return EventBatch(roi=roi, start=start, signal=np.zeros(n_events * grid.n_pixels, np.int16),
+                      time_s=index / float(rate_hz), trigger_id=index, index=index, grid=grid, validate=False)
+
+
+def _frames_per_block(grid: HexGrid) -> int:
+    """Frames read out per block: whole frames up to the readout block size (at least one)."""
+    return max(1, _BLOCK_PIXELS // grid.n_pixels)
+
+
+def _check_count(n_events):
+    if isinstance(n_events, bool) or int(n_events) != n_events or n_events < 0:
+        raise ValueError(f"'n_events' must be an integer >= 0 (got {n_events!r})")
+    return int(n_events)
+
+
 def simulate_pedestal_run(lab: LabPixelConfig | LabChip, n_events: int, rng=None, *, grid: HexGrid | None = None,
                           rate_hz: float = 100.0) -> LabRun:
-    """A pedestal run: ``n_events`` random triggers without a source, each reading the whole chip.
+    """A pedestal run in memory: ``n_events`` random triggers without a source, each reading the whole chip.
 
     Parameters
     ----------
@@ -418,20 +439,49 @@ def simulate_pedestal_run(lab: LabPixelConfig | LabChip, n_events: int, rng=None
         The chip (needed with a :class:`LabPixelConfig`; default ``HexGrid()``).
     rate_hz : float
         Trigger rate (event times are ``i / rate_hz``).
+
+    See Also
+    --------
+    write_pedestal_run : the same values streamed to a file (long runs of large chips).
     """
-    if isinstance(n_events, bool) or int(n_events) != n_events or n_events < 0:
-        raise ValueError(f"'n_events' must be an integer >= 0 (got {n_events!r})")
-    n_events = int(n_events)
+    n_events = _check_count(n_events)
     chip = lab if isinstance(lab, LabChip) else draw_lab_chip(lab, grid or HexGrid())
-    grid = chip.grid
     generator, seed = _generator(rng)
-    roi = np.tile(np.array([0, 0, grid.n_columns, grid.n_rows], np.int32), (n_events, 1))
-    start = np.arange(n_events + 1, dtype=np.int64) * grid.n_pixels
-    charge = EventBatch(roi=roi, start=start, signal=np.zeros(n_events * grid.n_pixels, np.int16),
-                        time_s=np.arange(n_events) / float(rate_hz), grid=grid, validate=False)
     state = generator.bit_generator.state
-    batch = lab_readout(charge, chip, generator)
+    step = _frames_per_block(chip.grid)
+    blocks = [lab_readout(_pedestal_frames(chip, a, min(step, n_events - a), rate_hz), chip, generator)
+              for a in range(0, n_events, step)]
+    batch = (EventBatch.concatenate(blocks) if blocks
+             else dataclasses.replace(EventBatch.empty(chip.grid), pedestal_subtracted=chip.pedestal_subtracted))
+    charge = _pedestal_frames(chip, 0, n_events, rate_hz)
     return LabRun(batch=batch, charge=charge, chip=chip, trigger_mode="random", seed=seed, _readout_state=state)
+
+
+def write_pedestal_run(path, lab: LabPixelConfig | LabChip, n_events: int, rng=None, *, grid: HexGrid | None = None,
+                       rate_hz: float = 100.0, overwrite: bool = False, compression: str = "lzf") -> Path:
+    """Stream a pedestal run to a raw file, block by block (memory bounded by the block, not the run).
+
+    Writes the same values as ``simulate_pedestal_run(...).write(path)`` for the same arguments.
+    """
+    n_events = _check_count(n_events)
+    chip = lab if isinstance(lab, LabChip) else draw_lab_chip(lab, grid or HexGrid())
+    generator, seed = _generator(rng)
+    created_utc = None
+    if seed is not None:
+        epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
+        created_utc = _dt.datetime.fromtimestamp(epoch, _dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    info = {"generator": "trackfit.simulate.labpixels", "seed": -1 if seed is None else int(seed),
+            "n_triggered": n_events, "description": "pedestal run: random triggers, no source",
+            "lab_pixels_toml": chip.config.to_toml(), "lab_pixels_defect_free": False}
+    step = _frames_per_block(chip.grid)
+    with RawEventWriter(path, chip.grid, compression=compression, run_info=info, overwrite=overwrite,
+                        created_utc=created_utc, trigger_mode="random",
+                        pedestal_subtracted=chip.pedestal_subtracted) as writer:
+        for a in range(0, n_events, step):
+            writer.append(lab_readout(_pedestal_frames(chip, a, min(step, n_events - a), rate_hz), chip, generator))
+        for name, values in chip.truth().items():
+            writer.add_array(f"pixel_truth/{name}", values, meaning=PIXEL_TRUTH[name])
+    return Path(path)
 
 
 def read_pixel_truth(path) -> dict:
