@@ -354,7 +354,7 @@ class LabRun:
         info["lab_pixels_defect_free"] = bool(defect_free)
         return info
 
-    def write(self, path, *, overwrite: bool = False, compression: str = "lzf", defect_free: bool = False,
+    def write(self, path, *, overwrite: bool = False, compression: str = "none", defect_free: bool = False,
               created_utc: str | None = None) -> Path:
         """Write a raw event file: the events (or, with ``defect_free=True``, the same events without the defects),
         ``/truth`` of a track run, the chip truth in ``/pixel_truth`` and the lab settings in ``/run``."""
@@ -458,7 +458,7 @@ def simulate_pedestal_run(lab: LabPixelConfig | LabChip, n_events: int, rng=None
 
 
 def write_pedestal_run(path, lab: LabPixelConfig | LabChip, n_events: int, rng=None, *, grid: HexGrid | None = None,
-                       rate_hz: float = 100.0, overwrite: bool = False, compression: str = "lzf") -> Path:
+                       rate_hz: float = 100.0, overwrite: bool = False, compression: str = "none") -> Path:
     """Stream a pedestal run to a raw file, block by block (memory bounded by the block, not the run).
 
     Writes the same values as ``simulate_pedestal_run(...).write(path)`` for the same arguments.
