@@ -196,7 +196,7 @@ def test_info_summarises_calibration_files(tmp_path, capsys):
     with h5py.File(other, "w") as f:
         f.attrs["trackfit_format"] = "something-else"
     assert main(["info", str(other)]) == 2
-    assert "expected a root attribute trackfit_format of ['raw-events', 'event-table', 'calibration']" in \
+    assert "expected a root attribute trackfit_format of ['raw-events', 'event-table', 'calibration', 'pixel-map']" in \
         capsys.readouterr().err
 
 

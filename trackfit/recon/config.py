@@ -54,6 +54,11 @@ SETTING_NOTES = {
                       "K-alpha peak / 5.895 keV)",
     "saturation_adc": "pixels at or above this signal set the SATURATED status bit (ADC counts)",
     "bad_pixels": "pixels to ignore (hot or dead), as [column, row] pairs, e.g. [[10, 20], [11, 20]]",
+    "pixel_map": 'pixel map made by `trackfit pixel-map` (docs/pixel-map-format.md), relative to this file\'s '
+                 'folder; "" for none. With a map, pedestals are subtracted from raw files that are not '
+                 "pedestal-subtracted, and its hot, dead and noisy pixels are ignored",
+    "threshold_noise_rms": "0: every pixel is cut at threshold_adc; > 0 (needs pixel_map): each pixel is cut at "
+                           "this many times its own noise from the map",
 }
 
 #: values renamed the same way (setting -> {old value: new value})
