@@ -7,6 +7,9 @@ What to use when
   polarized beam, the energy resolution (FWHM of the pulse-height peak) and the escape-peak fraction.
 * :func:`sweep_design` - the same for a list of values of one design value (``"drift.field_v_per_cm"``,
   ``"gas.pressure_atm"``, ``"gas.gap_cm"``, ``"multiplier.polya_theta"``, ...), everything else fixed.
+* :func:`simulate_beam` - the shared step: one simulated and reconstructed run of a 100 %-polarized beam
+  (:func:`polarized_beam`); :func:`pulse_height_resolution` its line width. The detector response of a design
+  (:mod:`trackfit.response_builder`, ``trackfit response``) is built on them.
 
 Each point simulates ``n_events`` triggered events of a monochromatic, 100 %-polarized beam (Gaussian spot at the
 chip centre) and reconstructs them with a :class:`~trackfit.ReconConfig`; μ is the modulation amplitude of the
@@ -35,14 +38,15 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .analysis.spectrum import fit_line
+from .io.table import EventTable
 from .recon import ReconConfig, reconstruct
-from .simulate import SimConfig, run
+from .simulate import SimConfig, SimResult, run
 from .simulate.config import SECTIONS
 from .simulate.fluorescence import FLUORESCENCE_FATES
 from .simulate.transport import transverse_diffusion
 
 __all__ = ["PerformancePoint", "DesignPerformance", "DesignSweep", "simulate_performance", "sweep_design",
-           "with_design_value"]
+           "with_design_value", "polarized_beam", "simulate_beam", "pulse_height_resolution"]
 
 _ESCAPED = (FLUORESCENCE_FATES.index("window"), FLUORESCENCE_FATES.index("multiplier"))
 
@@ -155,13 +159,18 @@ def with_design_value(config: SimConfig, key: str, value) -> SimConfig:
     return dataclasses.replace(config, **{table: dataclasses.replace(section, **{name: value})})
 
 
-def _beam(config: SimConfig, energy_kev: float, beam_sigma_mm: float) -> SimConfig:
+def polarized_beam(config: SimConfig, energy_kev: float, beam_sigma_mm: float = 0.5) -> SimConfig:
+    """``config`` with its source replaced by a monochromatic, 100 %-polarized beam (angle 0: along +x) in a
+    Gaussian spot of ``beam_sigma_mm`` at the chip centre, at normal incidence."""
     config = config.with_monochromatic(energy_kev=energy_kev, polarization_degree=1.0, polarization_angle_deg=0.0)
     return dataclasses.replace(config, source=dataclasses.replace(
         config.source, beam="gaussian", beam_sigma_mm=beam_sigma_mm, beam_centre_mm=(0.0, 0.0)))
 
 
-def _resolution(pulse_height) -> tuple[float, float]:
+def pulse_height_resolution(pulse_height) -> tuple[float, float]:
+    """FWHM / peak of a monochromatic pulse-height peak and its error: a Gaussian with a linear background
+    (:func:`trackfit.analysis.fit_line`) within ±25 % of the median; (NaN, NaN) for fewer than 50 values or a
+    failed fit."""
     ph = np.asarray(pulse_height, dtype=np.float64)
     ph = ph[np.isfinite(ph) & (ph > 0)]
     if ph.size < 50:
@@ -174,6 +183,37 @@ def _resolution(pulse_height) -> tuple[float, float]:
     if not fit.success:
         return float("nan"), float("nan")
     return float(fit.fwhm_frac), float(fit.fwhm_frac_err)
+
+
+def simulate_beam(config: SimConfig, energy_kev: float, *, n_events: int, seed, recon_config: ReconConfig | None = None,
+                  beam_sigma_mm: float = 0.5) -> tuple[SimResult, EventTable]:
+    """Simulate ``n_events`` triggered events of :func:`polarized_beam` and reconstruct them.
+
+    The one step every design study shares (:func:`simulate_performance` here, the detector response of
+    :mod:`trackfit.response_builder`).
+
+    Parameters
+    ----------
+    config : SimConfig
+        The design; its source is replaced by the beam.
+    energy_kev : float
+    n_events : int
+        Triggered events.
+    seed : int or numpy.random.Generator
+        Random numbers of the simulation.
+    recon_config : ReconConfig, optional
+        Default ``ReconConfig()``.
+    beam_sigma_mm : float
+
+    Returns
+    -------
+    result : SimResult
+        The simulated run (``result.batch`` holds the raw events, ``result.n_converted`` the converted photons).
+    table : EventTable
+        One row per triggered event.
+    """
+    result = run(polarized_beam(config, float(energy_kev), beam_sigma_mm), n_events, rng=seed)
+    return result, reconstruct(result.batch, recon_config or ReconConfig())
 
 
 def simulate_performance(config: SimConfig, energies_kev: Sequence[float], *, n_events: int = 20_000, seed: int = 0,
@@ -198,13 +238,11 @@ def simulate_performance(config: SimConfig, energies_kev: Sequence[float], *, n_
     -------
     DesignPerformance
     """
-    recon_config = recon_config or ReconConfig()
     diffusion = transverse_diffusion(config.gas, config.drift).um_per_sqrt_cm
     points = []
     for i, energy in enumerate(energies_kev):
-        beam = _beam(config, float(energy), beam_sigma_mm)
-        result = run(beam, n_events, rng=seed + i)
-        table = reconstruct(result.batch, recon_config)
+        result, table = simulate_beam(config, float(energy), n_events=n_events, seed=seed + i,
+                                      recon_config=recon_config, beam_sigma_mm=beam_sigma_mm)
         good = np.asarray(table["status"]) == 0
         phi = np.asarray(table["emission_rad"], dtype=np.float64)[good]
         n_good = int(good.sum())
@@ -213,7 +251,7 @@ def simulate_performance(config: SimConfig, energies_kev: Sequence[float], *, n_
             mu, mu_err = float(2 * np.hypot(q, u)), float(np.sqrt(2.0 / n_good))
         else:
             mu = mu_err = float("nan")
-        fwhm, fwhm_err = _resolution(np.asarray(table["pulse_height"])[good])
+        fwhm, fwhm_err = pulse_height_resolution(np.asarray(table["pulse_height"])[good])
         fate = np.asarray(result.truth["fluorescence_fate"])
         points.append(PerformancePoint(
             energy_kev=float(energy), n_events=len(result.batch), detection_efficiency=result.detection_efficiency,
