@@ -196,8 +196,8 @@ def test_info_summarises_calibration_files(tmp_path, capsys):
     with h5py.File(other, "w") as f:
         f.attrs["trackfit_format"] = "something-else"
     assert main(["info", str(other)]) == 2
-    assert "expected a root attribute trackfit_format of ['raw-events', 'event-table', 'calibration', 'pixel-map']" in \
-        capsys.readouterr().err
+    assert ("expected a root attribute trackfit_format of ['raw-events', 'event-table', 'calibration', 'pixel-map', "
+            "'response']") in capsys.readouterr().err
 
 
 def test_print_settings_is_the_shipped_example(capsys):

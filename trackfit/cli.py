@@ -24,7 +24,8 @@ import sys
 from collections.abc import Mapping
 
 #: subcommand modules, in the order ``trackfit --help`` lists them
-COMMAND_MODULES = ("info", "show", "simulate", "pixel_map", "reconstruct", "calibrate", "polarization")
+COMMAND_MODULES = ("info", "show", "simulate", "pixel_map", "reconstruct", "calibrate", "polarization",
+                   "response", "plan")
 
 
 class CommandError(Exception):

@@ -3,8 +3,9 @@
 Dispatches on the file's root attribute ``trackfit_format``: a raw event file (geometry, events, time span, ROI
 sizes, pulse heights, energy scale, layout check), an event table (:meth:`EventTable.summary`: rows, status,
 energy scale, per-column statistics, provenance), a calibration file (the calibration's own summary: each part
-with its runs) or a pixel map (codes, noise and pedestal distributions, source runs). ``--json`` prints the same as
-JSON for each kind.
+with its runs), a pixel map (codes, noise and pedestal distributions, source runs) or a detector response
+(``trackfit response``: the design, how the response was made and its energy grid). ``--json`` prints the
+same as JSON for each kind.
 """
 
 from __future__ import annotations
@@ -15,18 +16,21 @@ from pathlib import Path
 from ..cli import CommandError
 
 #: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
-KINDS = ("raw-events", "event-table", "calibration", "pixel-map")
+KINDS = ("raw-events", "event-table", "calibration", "pixel-map", "response")
 
 
 def register(subparsers):
     parser = subparsers.add_parser(
-        "info", help="summarise a raw event file, an event table, a calibration file or a pixel map",
+        "info", help="summarise a raw event file, an event table, a calibration file, a pixel map or a detector "
+        "response",
         description="Print what a trackfit file holds. Raw event files: geometry, event count, time span, "
         "ROI-size and pulse-height summaries, energy scale, and a check of every event's layout. Event tables: "
         "rows, status, energy scale (uncalibrated energies are marked), per-column min/max/mean/NaN and where "
         "the table comes from. Calibration files: each part with its summary and input runs. Pixel maps: counts of "
-        "each bad-pixel code, noise and pedestal distributions, samples and source runs.")
-    parser.add_argument("file", help="a trackfit HDF5 file (raw events, event table, calibration or pixel map)")
+        "each bad-pixel code, noise and pedestal distributions, samples and source runs. Detector responses: the "
+        "design, how the response was made and its energy grid.")
+    parser.add_argument("file", help="a trackfit HDF5 file (raw events, event table, calibration, pixel map or "
+                        "response)")
     parser.add_argument("--max-events", type=int, default=None, metavar="N",
                         help="summarise only the first N events (rows of a table) (default: all)")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
@@ -70,6 +74,8 @@ def run(args) -> int:
 
         pixel_map = read_pixel_map(args.file)
         print(json.dumps(pixel_map.summary(), indent=2, default=float) if args.json else pixel_map.summary_text())
+    elif kind == "response":
+        _response(args)
     else:
         _calibration(args)
     return 0
@@ -129,3 +135,15 @@ def _calibration(args) -> None:
                           "header": header, "parts": parts}, indent=2, default=str))
         return
     print("\n".join([*_file_lines(args.file, header), repr(calibration)]))
+
+
+def _response(args) -> None:
+    from ..response import DetectorResponse
+
+    response = DetectorResponse.load(args.file)
+    header = _header(args.file)
+    if args.json:
+        print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
+                          "header": header, **response.summary_dict()}, indent=2, default=str))
+        return
+    print("\n".join([*_file_lines(args.file, header), response.summary()]))
