@@ -109,7 +109,8 @@ def test_bytes_per_event_is_what_h5py_stores(tmp_path):
     with h5py.File(path, "r") as f:
         events = f["events"]
         # h5py's count of the bytes of every per-event dataset (start holds N + 1 entries: one is the file's)
-        stored = sum(events[name].size * events[name].dtype.itemsize for name in events) - events["start"].dtype.itemsize
+        stored = sum(events[name].size * events[name].dtype.itemsize for name in events)
+        stored -= events["start"].dtype.itemsize
     assert raw_bytes_per_event(17 * 13) * len(batch) == stored
 
 
