@@ -210,10 +210,11 @@ def simulate_beam(config: SimConfig, energy_kev: float, *, n_events: int, seed, 
     result : SimResult
         The simulated run (``result.batch`` holds the raw events, ``result.n_converted`` the converted photons).
     table : EventTable
-        One row per triggered event.
+        One row per triggered event; energies on the design's nominal scale unless ``recon_config`` sets one.
     """
     result = run(polarized_beam(config, float(energy_kev), beam_sigma_mm), n_events, rng=seed)
-    return result, reconstruct(result.batch, recon_config or ReconConfig())
+    # the run's /run attributes give the design's nominal energy scale when the settings set none
+    return result, reconstruct(result.batch, recon_config or ReconConfig(), run_info=result.run_info())
 
 
 def simulate_performance(config: SimConfig, energies_kev: Sequence[float], *, n_events: int = 20_000, seed: int = 0,

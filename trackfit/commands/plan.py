@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..cli import CommandError
+from ..cli import CommandError, translate_parameters
 
 #: Observation field -> the flag that sets it (errors name the flag)
 _FLAGS = {"flux_at_1kev": "--flux", "photon_index": "--photon-index", "area_cm2": "--area-cm2",
@@ -66,12 +66,6 @@ def register(subparsers):
     parser.set_defaults(func=run)
 
 
-def _with_flags(message: str) -> str:
-    for name, flag in sorted(_FLAGS.items(), key=lambda item: -len(item[0])):
-        message = message.replace(f"'{name}'", flag)
-    return message
-
-
 def _observation(args):
     from ..planner import Observation, read_two_column_csv
 
@@ -116,7 +110,7 @@ def _observation(args):
     try:
         return Observation(**values)
     except ValueError as err:
-        raise CommandError(_with_flags(str(err))) from None
+        raise CommandError(translate_parameters(str(err), _FLAGS)) from None
 
 
 def run(args) -> int:
@@ -131,7 +125,7 @@ def run(args) -> int:
     try:
         plan = plan_observation(args.responses, observation, names=args.name or None)
     except ValueError as err:
-        text = _with_flags(str(err))
+        text = translate_parameters(str(err), _FLAGS)
         raise CommandError("--band-kev " + text[len("band "):] if text.startswith("band ") else text) from None
     print(plan.summary())
     if args.json:

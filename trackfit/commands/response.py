@@ -11,7 +11,7 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
-from ..cli import CommandError
+from ..cli import CommandError, translate_parameters
 
 _FLAGS = {"energies_kev": "--energies-kev", "n_energies": "--n-energies", "events_per_energy": "--events-per-energy",
           "seed": "--seed", "beam_sigma_mm": "--beam-sigma-mm", "min_efficiency": "--min-efficiency"}
@@ -92,9 +92,7 @@ def _settings(args):
 
 
 def _with_flags(message: str) -> str:
-    for name, flag in _FLAGS.items():
-        message = message.replace(f"'{name}'", flag)
-    return message.replace("response settings: ", "")
+    return translate_parameters(message, _FLAGS).replace("response settings: ", "")
 
 
 def _selection(args):
