@@ -96,6 +96,23 @@ def test_mdp_of_a_simulated_response_is_the_formula(tmp_path):
         assert data[key] > 0
 
 
+def test_error_of_the_effective_modulation_factor_is_the_spread_of_resampled_responses():
+    rng = np.random.default_rng(5)
+    base = flat_response(mu=0.3)
+    grid_mu = np.array([0.05, 0.12, 0.25, 0.38, 0.5, 0.6])
+    errors = np.array([0.03, 0.03, 0.02, 0.02, 0.02, 0.04])
+    obs = Observation(flux_at_1kev=1.0, photon_index=2.0, area_cm2=10.0, band_kev=(2.0, 8.0), exposure_s=1e4)
+    response = base.replace(per_energy={**base.per_energy, "modulation_factor": grid_mu,
+                                        "modulation_factor_err": errors})
+    plan = plan_observation([response], obs)["flat"]
+    # Monte Carlo propagation (numpy): draw the grid's μ within their errors and re-plan
+    draws = [plan_observation([base.replace(per_energy={**base.per_energy, "modulation_factor":
+                                                        grid_mu + errors * rng.standard_normal(6)})], obs)
+             ["flat"].effective_modulation_factor for _ in range(300)]
+    assert plan.effective_modulation_factor_err == pytest.approx(np.std(draws), rel=0.12)
+    assert np.mean(draws) == pytest.approx(plan.effective_modulation_factor, abs=3 * np.std(draws) / np.sqrt(300))
+
+
 def test_data_volume_counts_every_triggered_event_over_the_response_range():
     response = flat_response(efficiency=0.2, trigger=0.8, selected=0.5, bytes_per_event=500.0, lo=1.0, hi=20.0)
     obs = Observation(flux_at_1kev=1.0, photon_index=2.0, area_cm2=10.0, band_kev=(2.0, 8.0), exposure_s=1e3,

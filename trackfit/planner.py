@@ -389,8 +389,9 @@ class DesignPlan:
     source_counts, background_counts : float
         Selected source and background events in the band during the exposure.
     source_rate_hz, background_rate_hz : float
-    effective_modulation_factor : float
-        μ weighted by the detected source spectrum in the band.
+    effective_modulation_factor, effective_modulation_factor_err : float
+        μ weighted by the detected source spectrum in the band, and its standard error from the errors of the
+        response's μ points (the MDP99's relative error is the same).
     mdp99 : float
         MDP at 99 % confidence for the exposure (a fraction; NaN when it cannot be reached: no counts, μ <= 0).
     exposure_s, target_mdp, exposure_for_target_s : float
@@ -418,6 +419,7 @@ class DesignPlan:
     source_rate_hz: float
     background_rate_hz: float
     effective_modulation_factor: float
+    effective_modulation_factor_err: float
     mdp99: float
     exposure_s: float
     target_mdp: float
@@ -489,9 +491,10 @@ class ObservationPlan:
         for p in self.designs:
             mdp = "—" if not math.isfinite(p.mdp99) else f"{100 * p.mdp99:.2f} %"
             t = "—" if not math.isfinite(p.exposure_for_target_s) else f"{p.exposure_for_target_s:.3g} s"
-            lines.append("| " + " | ".join([p.name, f"{p.source_counts:.4g}", f"{p.background_counts:.4g}",
-                                            f"{p.effective_modulation_factor:.3f}", mdp, t, f"{p.events_per_s:.3g}",
-                                            f"{p.gb_per_day:.3g}", f"{p.gb_per_day_compressed:.3g}"]) + " |")
+            mu = f"{p.effective_modulation_factor:.3f} ± {p.effective_modulation_factor_err:.3f}"
+            lines.append("| " + " | ".join([p.name, f"{p.source_counts:.4g}", f"{p.background_counts:.4g}", mu, mdp, t,
+                                            f"{p.events_per_s:.3g}", f"{p.gb_per_day:.3g}",
+                                            f"{p.gb_per_day_compressed:.3g}"]) + " |")
         return "\n".join(lines)
 
     def bands_markdown(self) -> str:
@@ -547,6 +550,19 @@ def _band(response: DetectorResponse, obs: Observation, lo: float, hi: float, re
     return energy, rate, source_rate, background_rate, mu
 
 
+def _mu_error(response: DetectorResponse, energy, rate) -> float:
+    """Standard error of μ_eff from the errors of the grid points: μ_eff is linear in the grid values μ_k,
+    μ_eff = Σ_k c_k μ_k, with c_k the spectrum-weighted integral of grid point k's interpolation weight."""
+    total = _integral(rate, energy)
+    if not total > 0:
+        return math.nan
+    log_e, grid = np.log(energy), np.log(response.energy_kev)
+    coefficients = np.array([_integral(rate * np.interp(log_e, grid, np.eye(grid.size)[k]), energy)
+                             for k in range(grid.size)]) / total
+    errors = np.nan_to_num(response["modulation_factor_err"], nan=0.0)
+    return float(np.sqrt(np.sum((coefficients * errors) ** 2)))
+
+
 def _check_covers(obs: Observation, response: DetectorResponse, label: str):
     lo, hi = obs.band_kev
     r_lo, r_hi = response.energy_range_kev
@@ -576,9 +592,13 @@ def plan_design(response: DetectorResponse, obs: Observation, *, label: str | No
         notes.append(f"background region: the whole chip, {region:.3g} cm² (set background_region_cm2 for a smaller "
                      "source region)")
     energy, rate, source_rate, background_rate, mu = _band(response, obs, *obs.band_kev, region)
+    mu_err = _mu_error(response, energy, rate)
     mdp = _mdp(mu, source_rate * T, background_rate * T)
     if not math.isfinite(mdp):
         notes.append("no MDP: no detected source counts or an effective modulation factor <= 0 in the band")
+    elif mu < 3 * mu_err:
+        notes.append(f"μ_eff = {mu:.3f} ± {mu_err:.3f} is within 3 errors of zero: the MDP99 is not determined by this "
+                     "response's statistics (more events per energy, or a band where the design modulates)")
     target = obs.target_mdp
     exposure_target = T * (mdp / target) ** 2 if target is not None and math.isfinite(mdp) else math.nan
     edges = obs.sub_band_edges_kev
@@ -602,7 +622,8 @@ def plan_design(response: DetectorResponse, obs: Observation, *, label: str | No
     return DesignPlan(
         name=label, description=response.description, origin=response.origin, response_file=str(response_file),
         source_counts=source_rate * T, background_counts=background_rate * T, source_rate_hz=source_rate,
-        background_rate_hz=background_rate, effective_modulation_factor=mu, mdp99=mdp, exposure_s=T,
+        background_rate_hz=background_rate, effective_modulation_factor=mu,
+        effective_modulation_factor_err=mu_err, mdp99=mdp, exposure_s=T,
         target_mdp=math.nan if target is None else target, exposure_for_target_s=exposure_target,
         bands=tuple(bands), events_per_s=events_per_s,
         bytes_per_event=bytes_per_s / events_per_s if events_per_s > 0 else math.nan, bytes_per_s=bytes_per_s,
