@@ -143,3 +143,30 @@ def test_own_design_example_runs(tmp_path, monkeypatch, capsys):
     assert result.settings["selection"] == selection.to_dict()
     assert printed.count(last_step["cut"]) >= 2
     assert (tmp_path / "my_design" / "calibration.h5").exists()
+
+
+def test_planner_example_runs_as_written(tmp_path):
+    # the README's planner commands, run as written in an empty folder (the response cache in the test's folder)
+    block = re.search(r"## Which design, how long, how many bytes.*?```\n(.*?)```", (ROOT / "README.md").read_text(),
+                      flags=re.S).group(1)
+    env = dict(os.environ, PATH=f"{Path(sys.executable).parent}{os.pathsep}{os.environ.get('PATH', '')}",
+               TRACKFIT_CACHE_DIR=str(tmp_path / "cache"))
+    done = subprocess.run(["bash", "-e", "-c", block], cwd=tmp_path, capture_output=True, text=True, env=env,
+                          timeout=900)
+    assert done.returncode == 0, done.stderr
+    designs = json.loads((tmp_path / "planning" / "plan.json").read_text())["designs"]
+    assert list(designs) == ["hedme-1atm-1cm", "dme-0.8atm-1cm", "ardme-3atm-3cm"]
+    for plan in designs.values():
+        for key in ("mdp99", "exposure_for_target_s", "effective_modulation_factor", "source_counts",
+                    "background_counts", "bytes_per_day"):
+            assert plan[key] > 0, key
+    # what the README says of the answer
+    hedme, dme, argon = designs.values()
+    assert 0.013 < hedme["mdp99"] < 0.022 and 0.013 < dme["mdp99"] < 0.022               # "about 1.5-2 %"
+    assert 4.5 < argon["source_counts"] / hedme["source_counts"] < 6.5                    # "five times more photons"
+    assert argon["effective_modulation_factor"] < 3 * argon["effective_modulation_factor_err"]  # "cannot be told"
+    assert any("within 3 errors of zero" in note for note in argon["notes"])
+    assert 0.02 < argon["bands"][-1]["mdp99"] < 0.045 and argon["bands"][-1]["low_kev"] == pytest.approx(5.657, 1e-3)
+    assert 6.0 < argon["bytes_per_day"] / hedme["bytes_per_day"] < 8.5                    # "seven times more bytes"
+    assert sorted(p.name for p in (tmp_path / "planning" / "figures").glob("*.png")) == [
+        "detected_spectra.png", "mdp_vs_exposure.png", "response_curves.png"]

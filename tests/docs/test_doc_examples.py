@@ -15,6 +15,7 @@ PRODUCTS = {
     "simulator.md": ("run.h5", ""),
     "pixel-map-format.md": ("chip_map.h5", "hot 4, dead 4"),
     "bring-your-own-data.md": ("converted_frames.h5", "2000 events"),
+    "planner.md": ("plan.json", "MDP99"),
 }
 
 
