@@ -319,8 +319,122 @@ summary
 ]
 
 
+DESIGN_STUDY = [
+    ("md", """
+# Design study: which design, how long, how many bytes
+
+Compare detector designs before building them: the response of each design (detection efficiency, modulation
+factor, resolution and bytes per event versus energy, from simulated 100 %-polarized beams), then the plan of an
+observation of a bright and a faint invented source with each design: MDP99 in the exposure, the exposure that
+reaches the target MDP, and the data volume of the readout. Two shipped designs and one of your own (a variation of
+a preset; or load your own TOML with `SimConfig.load`). Change the parameters in the next cell.
+"""),
+    ("code", """
+# parameters
+PRESETS = ["hedme-1atm-1cm", "ardme-3atm-3cm"]      # shipped designs (trackfit simulate --list-presets)
+OWN_DESIGN = {"name": "hedme-1atm-2cm", "base": "hedme-1atm-1cm", "changes": {"gas.gap_cm": 2.0}}  # your own
+EVENTS_PER_ENERGY = 2000     # triggered events per energy (mu to about +-0.03); 20000 or more for final numbers
+N_ENERGIES = 8               # energies of each response's grid (over the band where window x gas >= 1 %)
+WORKERS = None               # processes (None: one per CPU)
+CACHE_DIR = None             # response cache (None: the default user cache folder)
+BAND_KEV = (2.0, 8.0)        # analysis band
+EXPOSURE_S = 1e5             # planned exposure
+TARGET_MDP = 0.05            # MDP99 to reach
+AREA_CM2 = 100.0             # collecting area (a mirror)
+BACKGROUND = 5e-4            # selected background events per cm2 s keV
+BACKGROUND_REGION_CM2 = 0.2  # source region on the detector
+SOURCES = {                  # invented sources: power laws at 1 keV (photons cm-2 s-1 keV-1) behind a gas column
+    "bright": {"flux_at_1kev": 3.0, "photon_index": 2.0, "absorption_column_cm2": 3e21},
+    "faint": {"flux_at_1kev": 0.01, "photon_index": 2.0, "absorption_column_cm2": 1e22},
+}
+OUTPUT_DIR = "design_study_output"
+"""),
+    ("code", """
+import json
+from pathlib import Path
+
+from trackfit.design import with_design_value
+from trackfit.planner import Observation, plan_observation
+from trackfit.planner_figures import plot_response_curves, save_plan_figures
+from trackfit.response_builder import ResponseSettings, build_response
+from trackfit.simulate import load_preset
+
+output = Path(OUTPUT_DIR)
+output.mkdir(parents=True, exist_ok=True)
+designs = {name: load_preset(name) for name in PRESETS}
+own = load_preset(OWN_DESIGN["base"])
+for key, value in OWN_DESIGN["changes"].items():
+    own = with_design_value(own, key, value)
+designs[OWN_DESIGN["name"]] = own
+settings = ResponseSettings(n_energies=N_ENERGIES, events_per_energy=EVENTS_PER_ENERGY)
+"""),
+    ("md", """
+## The response of each design
+
+Simulated and reconstructed beams at each energy (cached: running the notebook again is quick). The top panel
+shows μ(E)·ε(E), what a polarization measurement needs per incident photon; the band of the study is shaded.
+"""),
+    ("code", """
+responses, response_files = {}, {}
+for name, design in designs.items():
+    responses[name] = build_response(design, name=name, settings=settings, workers=WORKERS, cache_dir=CACHE_DIR)
+    response_files[name] = str(responses[name].save(output / f"{name}_response.h5", overwrite=True))
+    print(responses[name].summary(), end="\\n\\n")
+plot_response_curves(list(responses.values()), band_kev=BAND_KEV);
+"""),
+    ("md", """
+## Plans for a bright and a faint source
+
+The same designs, band, exposure and instrument for each source. MDP99 follows Weisskopf et al. (2010) with the
+background; the data volume counts every triggered event over each design's whole range.
+"""),
+    ("code", """
+plans = {}
+for source, spectrum in SOURCES.items():
+    observation = Observation(**spectrum, area_cm2=AREA_CM2, background_per_cm2_s_kev=BACKGROUND,
+                              background_region_cm2=BACKGROUND_REGION_CM2, band_kev=BAND_KEV,
+                              exposure_s=EXPOSURE_S, target_mdp=TARGET_MDP)
+    plans[source] = plan_observation(list(responses.values()), observation)
+    print(f"--- {source} source")
+    print(plans[source].summary(), end="\\n\\n")
+    save_plan_figures(plans[source], output / source)
+"""),
+    ("md", """
+## Which design, how long, how many bytes
+
+For each source the design that reaches the target MDP soonest among those whose MDP the responses determine
+(μ_eff at least three errors from zero), its exposure, and what it writes per day over that time.
+"""),
+    ("code", """
+rows, best = [], {}
+for source, plan in plans.items():
+    determined = [p for p in plan.designs if p.effective_modulation_factor > 3 * p.effective_modulation_factor_err]
+    winner = min(determined, key=lambda p: p.exposure_for_target_s) if determined else None
+    best[source] = winner.name if winner else None
+    for p in plan.designs:
+        rows.append({"source": source, "design": p.name, "mdp99": p.mdp99, "mu_eff": p.effective_modulation_factor,
+                     "exposure_for_target_s": p.exposure_for_target_s, "gb_per_day": p.gb_per_day,
+                     "gb_for_target": p.gb_per_day * p.exposure_for_target_s / 86400.0,
+                     "best": p.name == best[source]})
+print(f"{'source':8} {'design':16} {'MDP99':>7} {'mu_eff':>7} {'T for target':>13} {'GB/day':>8} "
+      f"{'GB to target':>13}")
+for r in rows:
+    print(f"{r['source']:8} {r['design']:16} {100 * r['mdp99']:6.2f}% {r['mu_eff']:7.3f} "
+          f"{r['exposure_for_target_s']:12.3g}s {r['gb_per_day']:8.3g} {r['gb_for_target']:13.3g}"
+          f"{'  <- best' if r['best'] else ''}")
+"""),
+    ("code", """
+summary = {"responses": response_files, "best": best,
+           "plans": {source: plan.to_dict() for source, plan in plans.items()},
+           "figures": sorted(str(p) for p in output.glob("*/*.png"))}
+(output / "design_study.json").write_text(json.dumps(summary, indent=2))
+best
+"""),
+]
+
+
 NOTEBOOKS = {"01_first_look.ipynb": FIRST_LOOK, "02_cut_tuning.ipynb": CUT_TUNING,
-             "03_calibration_report.ipynb": CALIBRATION_REPORT}
+             "03_calibration_report.ipynb": CALIBRATION_REPORT, "04_design_study.ipynb": DESIGN_STUDY}
 
 
 def main():

@@ -84,6 +84,31 @@ def test_calibration_report(tmp_path):
         assert abs(check["angle_deg"] - check["true_angle_deg"]) < 5.0
 
 
+def test_design_study(tmp_path):
+    pytest.importorskip("xraydb")
+    run_notebook("04_design_study.ipynb", {"OUTPUT_DIR": str(tmp_path), "CACHE_DIR": str(tmp_path / "cache"),
+                                           "EVENTS_PER_ENERGY": 400, "N_ENERGIES": 5, "WORKERS": 1}, tmp_path)
+    summary = json.loads((tmp_path / "design_study.json").read_text())
+    assert set(summary["responses"]) == {"hedme-1atm-1cm", "ardme-3atm-3cm", "hedme-1atm-2cm"}
+    bright, faint = summary["plans"]["bright"]["designs"], summary["plans"]["faint"]["designs"]
+    for name in summary["responses"]:
+        for plan in (bright[name], faint[name]):
+            # the exposure for the target follows from MDP99 ∝ T^-1/2 (Weisskopf et al. 2010): T (MDP99 / M)^2
+            assert plan["exposure_for_target_s"] == pytest.approx(1e5 * (plan["mdp99"] / 0.05) ** 2, rel=1e-9)
+        assert faint[name]["source_counts"] < bright[name]["source_counts"]
+        if faint[name]["mdp99"] is not None and bright[name]["mdp99"] is not None:
+            assert faint[name]["mdp99"] > bright[name]["mdp99"]
+    # a 2 cm gap of the same gas absorbs more than 1 cm (Beer-Lambert), so it detects more of the same source
+    assert bright["hedme-1atm-2cm"]["source_counts"] > 1.2 * bright["hedme-1atm-1cm"]["source_counts"]
+    # the argon cell (3 atm, built for 15-35 keV) modulates less in 2-8 keV, where its photoelectron tracks are short
+    # (docs/simulator.md; fixed seeds), and its wider ROIs and five times more detected photons cost more bytes
+    assert bright["ardme-3atm-3cm"]["effective_modulation_factor"] < bright["hedme-1atm-1cm"][
+        "effective_modulation_factor"]
+    assert bright["ardme-3atm-3cm"]["bytes_per_day"] > 3 * bright["hedme-1atm-1cm"]["bytes_per_day"]
+    assert set(summary["best"]) == {"bright", "faint"}
+    assert len(summary["figures"]) == 6
+
+
 def test_notebooks_are_what_the_build_script_writes():
     """The committed notebooks are what notebooks/_build.py writes (deterministic cell ids): edit the script."""
     import importlib.util
