@@ -268,6 +268,16 @@ def test_response_from_a_calibration_file_matches_the_design(simulated_runs, tmp
     # it plans like any response
     path = measured.save(tmp_path / "built.h5")
     assert DetectorResponse.load(path).settings["runs"][0]["raw"] == str(raws[0])
+    # the same from the command line
+    from trackfit.cli import main
+
+    out = tmp_path / "built_cli.h5"
+    assert main(["response", "--calibration", str(calibration), "--preset", "hedme-1atm-1cm", "--run", str(raws[0]),
+                 str(tables[0]), "--run", str(raws[1]), str(tables[1]), "--name", "built", "--n-energies", "2",
+                 "-o", str(out)]) == 0
+    from_cli = DetectorResponse.load(out)
+    assert from_cli.origin == "calibration" and from_cli.name == "built"
+    assert from_cli["modulation_factor"] == pytest.approx(np.array(curve.points_value), abs=1e-9)
     short = trackfit.write_raw(tmp_path / "short.h5", trackfit.open_raw(raws[0]).read_batch(0, 100))
     with pytest.raises(ValueError, match="has 100 events but event table .* has 1500 rows"):
         response_from_calibration(calibration, design, [MeasuredRun(short, tables[0])])
