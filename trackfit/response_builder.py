@@ -34,7 +34,7 @@ from pathlib import Path
 import numpy as np
 
 from . import _toml
-from .analysis.selection import Cut, StatusCut
+from .analysis.selection import Cut, cut_from_dict, with_default
 from .recon import ReconConfig
 from .response import DetectorResponse, chip_area_cm2, raw_bytes_per_event
 from .simulate import GasMixture, SimConfig, window_transmission
@@ -49,8 +49,9 @@ _POINT_RECORD_VERSION = 1
 
 
 def response_selection(extra: Cut | None = None) -> Cut:
-    """The selection a response measures its shares and μ on: the project's default selection, plus ``extra``."""
-    return StatusCut() if extra is None else StatusCut() & extra
+    """The selection a response measures its shares and μ on: the default selection of every analysis (events with
+    an emission angle and no failure bit, :func:`trackfit.analysis.with_default`), plus the cuts of ``extra``."""
+    return with_default(extra)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -508,7 +509,8 @@ def response_from_calibration(calibration, design: SimConfig, runs: Sequence[Mea
         Grid (default: ``n_energies`` log-spaced energies over the curve's measured range).
     n_energies : int
     selection : Cut, optional
-        Default :func:`response_selection`; a note says when the calibration's recorded cuts differ.
+        Default: the selection the calibration's modulation factor was measured with (recorded in the file), else
+        :func:`response_selection`; a note says when a given selection differs from the recorded one.
     recon_config : ReconConfig, optional
         Recorded in the response (default: the settings stored in the first run's table, else the defaults).
 
@@ -531,7 +533,9 @@ def response_from_calibration(calibration, design: SimConfig, runs: Sequence[Mea
     if not runs:
         raise ValueError("a response from a calibration needs at least one measured run (raw file and event table) "
                          "for the selected share and the ROI sizes")
-    selection = selection if selection is not None else response_selection()
+    recorded = (calibration.provenance.get("modulation_factor") or {}).get("cuts")
+    if selection is None:
+        selection = with_default(cut_from_dict(recorded)) if recorded else response_selection()
     lo, hi = curve.energy_range_kev
     if energies_kev is None:
         energies = np.geomspace(lo, hi, n_energies) if hi > lo and n_energies > 1 else np.array([lo])
@@ -563,8 +567,7 @@ def response_from_calibration(calibration, design: SimConfig, runs: Sequence[Mea
              "interpolated in ln E and held beyond"]
     if energies.min() < lo * (1 - 1e-9) or energies.max() > hi * (1 + 1e-9):
         notes.append(f"μ measured over {lo:.3g}-{hi:.3g} keV only: the curve is held constant beyond")
-    recorded = (calibration.provenance.get("modulation_factor") or {}).get("cuts")
-    if recorded is not None and recorded != selection.to_dict():
+    if recorded and with_default(cut_from_dict(recorded)).to_dict() != selection.to_dict():
         notes.append(f"the calibration's modulation factor was measured with cuts {json.dumps(recorded)}; the shares "
                      f"here use {selection.describe()}")
     return DetectorResponse(

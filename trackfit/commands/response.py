@@ -45,7 +45,7 @@ def register(subparsers):
     parser.add_argument("--config", metavar="TOML", help="reconstruction settings (default: the defaults of "
                         "trackfit reconstruct --print-settings)")
     parser.add_argument("--cuts", metavar="TOML", help="selection file whose cuts are added to the default "
-                        "selection (default: none)")
+                        "selection (default: none; with --calibration, the selection recorded in the calibration)")
     run = parser.add_argument_group("running")
     run.add_argument("--workers", type=int, metavar="N", help="processes (default: one per CPU)")
     run.add_argument("--scheduler", metavar="ADDRESS", help="run one task per energy on a Dask cluster: a scheduler "
@@ -101,7 +101,7 @@ def _selection(args):
     from ..response_builder import response_selection
 
     if not args.cuts:
-        return response_selection()
+        return None  # the default selection (a calibration's: the one recorded with its modulation factor)
     if not Path(args.cuts).exists():
         raise FileNotFoundError(f"selection file '{args.cuts}' (--cuts) does not exist")
     try:
