@@ -12,6 +12,9 @@ What to use when
   modulation, calibration files.
 * ``trackfit.pixels`` - pixel pedestals, noise and bad pixels measured from raw files (pixel maps).
 * ``trackfit.simulate`` - the photoelectron track simulator (presets, configs, runs, lab-like chips).
+* ``trackfit.response_builder`` / ``trackfit.planner`` - the detector response of a design (efficiency, μ(E),
+  bytes per event; ``docs/response-format.md``) and the plan of an observation with it (MDP99, exposure for a
+  target MDP, data volume; ``docs/planner.md``).
 * ``trackfit.tuning`` - sweeps of reconstruction settings and cuts (quality factor, residual modulation).
 * ``trackfit.plotting`` - event displays.
 

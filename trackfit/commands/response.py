@@ -23,8 +23,8 @@ def register(subparsers):
         description="Simulate a 100 %-polarized beam through a design at each energy of a grid (default: "
         "8 energies over the band where window x gas absorption >= 1 %), reconstruct it and measure detection "
         "efficiency, modulation factor, energy resolution, ROI pixels and raw-format bytes per event; write them "
-        "to a response file for trackfit plan. Energies run in parallel and are cached: a second call is "
-        "instant. With --calibration and --run: the response of a built detector from its calibration file.")
+        "to a response file for trackfit plan. Energies run in parallel and are cached: a second call takes "
+        "seconds. With --calibration and --run: the response of a built detector from its calibration file.")
     design = parser.add_argument_group("the design")
     design.add_argument("--preset", metavar="NAME", help="a shipped design (trackfit simulate --list-presets)")
     design.add_argument("--design", metavar="DESIGN.toml", help="a design of your own (a simulation config)")
