@@ -121,6 +121,20 @@ RESPONSE_ERRORS = [
 ]
 
 
+def test_a_design_that_never_triggers_is_an_error_not_a_traceback(tmp_path, capsys):
+    from trackfit.simulate import load_preset
+
+    design = load_preset("hedme-1atm-1cm")
+    text = design.to_toml().replace("trigger_threshold_electrons = 1000.0", "trigger_threshold_electrons = 1e12")
+    path = tmp_path / "deaf.toml"
+    path.write_text(text)
+    assert main(["response", "--design", str(path), "--energies-kev", "3", "--events-per-energy", "50",
+                 "--workers", "1", "--no-cache", "--no-progress", "-o", str(tmp_path / "r.h5")]) == 2
+    err = capsys.readouterr().err
+    assert "at 3 keV: no event triggered" in err and "Traceback" not in err
+    assert not (tmp_path / "r.h5").exists()
+
+
 @pytest.mark.parametrize("argv, message", RESPONSE_ERRORS, ids=[m[:30] for _, m in RESPONSE_ERRORS])
 def test_response_errors_name_the_flag(argv, message, tmp_path, capsys):
     assert main(["response", "-o", str(tmp_path / "r.h5"), *argv]) == 2

@@ -213,8 +213,11 @@ def _measure_point(task: dict) -> dict:
     design = SimConfig.from_toml(task["design_toml"])
     recon = ReconConfig.from_toml(task["recon_toml"])
     energy = float(task["energy_kev"])
-    result, table = simulate_beam(design, energy, n_events=task["events"], seed=task["seed"], recon_config=recon,
-                                  beam_sigma_mm=task["beam_sigma_mm"])
+    try:
+        result, table = simulate_beam(design, energy, n_events=task["events"], seed=task["seed"], recon_config=recon,
+                                      beam_sigma_mm=task["beam_sigma_mm"])
+    except RuntimeError as err:  # the simulator's "nothing triggers": a property of the design, named with the energy
+        raise ValueError(f"design '{design.description}' at {energy:g} keV: {err}") from None
     if task.get("keep_raw"):
         result.write(task["keep_raw"], overwrite=True)
     mask = np.asarray(task["selection"].mask(table), dtype=bool)
