@@ -37,6 +37,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .analysis.estimates import with_estimate
 from .analysis.spectrum import fit_line
 from .io.table import EventTable
 from .recon import ReconConfig, reconstruct
@@ -245,7 +246,7 @@ def simulate_performance(config: SimConfig, energies_kev: Sequence[float], *, n_
         result, table = simulate_beam(config, float(energy), n_events=n_events, seed=seed + i,
                                       recon_config=recon_config, beam_sigma_mm=beam_sigma_mm)
         good = np.asarray(table["status"]) == 0
-        phi = np.asarray(table["emission_rad"], dtype=np.float64)[good]
+        phi = np.asarray(with_estimate(table)["emission_rad"], dtype=np.float64)[good]  # the config's estimate
         n_good = int(good.sum())
         if n_good:
             q, u = np.mean(np.cos(2 * phi)), np.mean(np.sin(2 * phi))

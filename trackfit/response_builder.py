@@ -207,6 +207,7 @@ def _point_seed(seed: int, energy_kev: float) -> int:
 
 def _measure_point(task: dict) -> dict:
     """Runs in a worker: simulate and reconstruct one beam, return the measured values (plain floats)."""
+    from .analysis.estimates import with_estimate
     from .analysis.modfactor import measure_modulation_factor
     from .design import pulse_height_resolution, simulate_beam
 
@@ -220,6 +221,7 @@ def _measure_point(task: dict) -> dict:
         raise ValueError(f"design '{design.description}' at {energy:g} keV: {err}") from None
     if task.get("keep_raw"):
         result.write(task["keep_raw"], overwrite=True)
+    table = with_estimate(table)  # the emission estimate of the reconstruction settings
     mask = np.asarray(task["selection"].mask(table), dtype=bool)
     n_triggered, n_selected = len(table), int(mask.sum())
     phi = np.asarray(table["emission_rad"], dtype=np.float64)[mask]

@@ -301,6 +301,7 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
     SweepResult
     """
     from .analysis import mdp99, selection_from_dict
+    from .analysis.estimates import with_estimate
     from .recon import ReconConfig, reconstruct
 
     base_config = base_config or ReconConfig()
@@ -328,8 +329,8 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
         params = dict(zip(recon_names, recon_point, strict=True))
         config = replace(base_config, **params)
         t0 = time.perf_counter()
-        pol_table = reconstruct(pol_batch, config)
-        unpol_table = reconstruct(unpol_batch, config) if unpol_batch is not None else None
+        pol_table = with_estimate(reconstruct(pol_batch, config))  # the config's emission estimate
+        unpol_table = with_estimate(reconstruct(unpol_batch, config)) if unpol_batch is not None else None
         seconds = time.perf_counter() - t0
         for cut_point, cut in zip(cut_points, cuts, strict=True):
             keep = cut.mask(pol_table)

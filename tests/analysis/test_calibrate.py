@@ -15,6 +15,7 @@ from trackfit.analysis import (
     build_calibration,
     measure_polarization,
 )
+from trackfit.analysis.estimates import EstimateMismatchError
 from trackfit.analysis.gainmap import choose_gain_cell_mm
 from trackfit.recon.status import Status
 
@@ -152,7 +153,7 @@ def test_default_selection_everywhere_and_cut_flows():
                           selection=EnergyWindow(low_kev=40, high_kev=50))
 
 
-def test_measurement_warns_when_its_selection_differs_from_the_calibration():
+def test_measurement_warns_when_its_selection_differs_from_the_calibration_and_refuses_other_weights():
     rng = np.random.default_rng(307)
     polarized = make_table(rng, 6000, energy_kev=6.0, modulation=0.5)
     calibration, _ = build_calibration(polarized=[CalibrationRun(table=polarized, label="pol.h5")],
@@ -164,6 +165,7 @@ def test_measurement_warns_when_its_selection_differs_from_the_calibration():
     # energies are on its nominal scale (6 keV at 9 "keV"), as there is no energy scale
     measure_polarization(science, calibration=calibration,
                          selection=ElongationCut(low=1.5) & EnergyWindow(low_kev=8, high_kev=10))
-    with pytest.warns(Warning, match="made with weights 'none'"):
+    # other weights than the calibration's modulation factor: refused, naming both
+    with pytest.raises(EstimateMismatchError, match="made with weights 'none', this measurement uses 'ellipticity'"):
         measure_polarization(science, calibration=calibration, selection=ElongationCut(low=1.5),
                              weighting="ellipticity")

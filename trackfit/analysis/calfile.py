@@ -1,4 +1,5 @@
-"""Calibration files: energy scale, gain map, gain drift, modulation-factor curve and spurious-modulation map.
+"""Calibration files: energy scale, gain map, gain drift, modulation-factor curve, spurious-modulation map and the
+per-event modulation response (the weights ``response``).
 
 :class:`Calibration` bundles whichever parts exist, each with its provenance (runs, cuts, weights, trackfit
 version, time), writes them to one HDF5 file (layout: ``docs/calibration-format.md``) and applies them to any
@@ -20,6 +21,7 @@ from ..io._partial import PartialFileWriter, now_utc
 from .gainmap import GainMap
 from .gaintime import GainDrift
 from .modfactor import ModulationFactorCurve
+from .response_weights import ModulationResponse
 from .spectrum import EnergyScale
 from .spurious import SpuriousMap
 
@@ -28,7 +30,9 @@ __all__ = ["CALIBRATION_FORMAT", "CALIBRATION_FORMAT_VERSION", "Calibration", "C
 
 CALIBRATION_FORMAT = "calibration"
 CALIBRATION_FORMAT_VERSION = 1
-_PARTS = ("energy_scale", "gain_map", "gain_drift", "modulation_factor", "spurious_modulation")
+_PARTS = ("energy_scale", "gain_map", "gain_drift", "modulation_factor", "spurious_modulation", "modulation_response")
+#: parts whose values depend on the emission estimate and the weights they were made with
+ESTIMATE_PARTS = ("modulation_factor", "spurious_modulation", "modulation_response")
 
 
 class CalibrationFormatError(ValueError):
@@ -47,8 +51,8 @@ def _version() -> str:
 
 def make_provenance(*, runs=(), cuts=None, weights="none", **extra) -> dict:
     """Provenance of a calibration part: input runs, cuts (plain dict, :meth:`~trackfit.analysis.Cut.to_dict`),
-    weights, version, time, and any part-specific entries (e.g. ``selection``, the cuts as printed in a cut flow, and
-    ``cut_flows``, the cut flow of each input run)."""
+    weights, version, time, and any part-specific entries (e.g. ``selection``, the cuts as printed in a cut flow,
+    ``cut_flows``, the cut flow of each input run, and ``estimator``, the emission estimate of the input tables)."""
     return {"runs": [str(r) for r in runs], "cuts": cuts, "weights": weights, "trackfit_version": _version(),
             "created_utc": now_utc(), **extra}
 
@@ -89,6 +93,8 @@ class Calibration:
         Modulation factor versus energy.
     spurious_modulation : SpuriousMap, optional
         Spurious Q, U versus energy and position.
+    modulation_response : ModulationResponse, optional
+        Expected modulation response of an event from its shape (the weights ``"response"``).
     provenance : dict
         Per part name, the provenance dict (:func:`make_provenance`).
     """
@@ -98,6 +104,7 @@ class Calibration:
     gain_drift: GainDrift | None = None
     modulation_factor: ModulationFactorCurve | None = None
     spurious_modulation: SpuriousMap | None = None
+    modulation_response: ModulationResponse | None = None
     provenance: dict = field(default_factory=dict)
 
     def __post_init__(self):
@@ -126,6 +133,13 @@ class Calibration:
         """The per-event weighting part ``name`` was made with (None when not recorded)."""
         return self.provenance.get(name, {}).get("weights") if getattr(self, name, None) is not None else None
 
+    def estimator_of(self, name: str) -> str | None:
+        """The emission estimate part ``name`` was made with (None when the part is absent; ``"two-stage"`` for
+        parts of files written before the estimators existed, which were all made with it)."""
+        if getattr(self, name, None) is None:
+            return None
+        return self.provenance.get(name, {}).get("estimator", "two-stage")
+
     def with_part(self, name: str, value, provenance: Mapping | None = None) -> Calibration:
         """A copy with part ``name`` set (and its provenance)."""
         if name not in _PARTS:
@@ -144,7 +158,9 @@ class Calibration:
         * ``gain_relative``: ``G_map(x, y) [* G_drift(t)]`` (with a gain map or drift);
         * ``energy_kev``: replaced by ``scale(pulse_height / gain_relative)`` (with an energy scale);
         * ``modulation_factor``: ``curve(energy_kev)`` (with a curve);
-        * ``spurious_q``, ``spurious_u``: the spurious modulation at each event (with a map).
+        * ``spurious_q``, ``spurious_u``: the spurious modulation at each event (with a map);
+        * ``response_weight``: the expected modulation response of each event from its shape (with a
+          modulation-response part; the weights ``"response"``).
 
         Parameters
         ----------
@@ -182,6 +198,8 @@ class Calibration:
             q_sp, u_sp = self.spurious_modulation.at(need("energy_kev", "spurious map"), need(xc, "spurious map"),
                                                      need(yc, "spurious map"))
             out["spurious_q"], out["spurious_u"] = q_sp, u_sp
+        if self.modulation_response is not None:
+            out["response_weight"] = self.modulation_response(out)
         return out
 
     # ------------------------------------------------------------------------------------------ files
@@ -240,6 +258,8 @@ class Calibration:
             prov = self.provenance.get(name, {})
             runs = ", ".join(Path(r).name for r in prov.get("runs", [])) or "?"
             text = f"runs: {runs}; weights: {prov.get('weights', '?')}"
+            if name in ESTIMATE_PARTS:
+                text += f"; estimate: {self.estimator_of(name)}"
             selection = prov.get("selection")
             if selection is None and self.selection_of(name) is not None:
                 selection = self.selection_of(name).describe()
@@ -349,7 +369,28 @@ def _read_spurious(group) -> SpuriousMap:
                        position=_position(group.attrs["position"]))
 
 
+_RESPONSE_ATTRIBUTES = ("coefficients", "feature_low", "feature_high", "feature_mean", "feature_scale")
+
+
+def _write_modulation_response(group, response: ModulationResponse):
+    group.attrs["model"] = "clip(polynomial of the standardised, clipped features, 0, 1)"
+    group.attrs["features"] = ",".join(response.features)
+    group.attrs["degree"] = int(response.degree)
+    group.attrs["n_events"] = int(response.n_events)
+    for name in _RESPONSE_ATTRIBUTES:
+        group.attrs[name] = np.asarray(getattr(response, name), dtype=float)
+
+
+def _read_modulation_response(group) -> ModulationResponse:
+    return ModulationResponse(**{name: tuple(np.asarray(group.attrs[name], dtype=float))
+                                 for name in _RESPONSE_ATTRIBUTES},
+                              degree=int(group.attrs["degree"]), n_events=int(group.attrs["n_events"]),
+                              features=tuple(_str(group.attrs["features"]).split(",")))
+
+
 _WRITERS = {"energy_scale": _write_energy_scale, "gain_map": _write_gain_map, "gain_drift": _write_gain_drift,
-            "modulation_factor": _write_modulation_factor, "spurious_modulation": _write_spurious}
+            "modulation_factor": _write_modulation_factor, "spurious_modulation": _write_spurious,
+            "modulation_response": _write_modulation_response}
 _READERS = {"energy_scale": _read_energy_scale, "gain_map": _read_gain_map, "gain_drift": _read_gain_drift,
-            "modulation_factor": _read_modulation_factor, "spurious_modulation": _read_spurious}
+            "modulation_factor": _read_modulation_factor, "spurious_modulation": _read_spurious,
+            "modulation_response": _read_modulation_response}

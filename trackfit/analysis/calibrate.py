@@ -8,12 +8,17 @@ Order of the steps, each using the parts made before it:
 2. energy scale from the flat-field line and any further lines (one Gaussian each, on gain-corrected pulse heights
    when there is a gain map); lines alone, without a flat field, are enough: they are found in their spectra by
    :mod:`~trackfit.analysis.linefinder`;
-3. spurious-modulation map from unpolarized runs (one energy node per run), its cells centred on the data;
-4. modulation factor versus energy from polarized runs, with the spurious modulation subtracted.
+3. with the weights ``"response"``: the expected modulation response of an event from its shape, fitted on the
+   polarized runs (``docs/methods.md`` §11);
+4. spurious-modulation map from unpolarized runs (one energy node per run), its cells centred on the data;
+5. modulation factor versus energy from polarized runs, with the spurious modulation subtracted.
+
+Steps 3-5 use one emission estimate of the tables (``estimator``, by default the one the tables were reconstructed
+with; :mod:`trackfit.analysis.estimates`), recorded in the provenance of each part (``estimator``).
 
 Every run is selected with the default selection (:class:`~trackfit.analysis.UsableEvents`: an emission angle and
 no failure bit) plus the cuts given: ``flat_selection`` for steps 1-2 (on the table's own energies), ``selection``
-for steps 3-4 after calibration (so energy windows use calibrated energies), the same that the science analysis
+for steps 3-5 after calibration (so energy windows use calibrated energies), the same that the science analysis
 should use. The cut flow of every run is kept in the report and in the provenance; a run left without events
 raises :class:`~trackfit.analysis.NoEventsLeftError` with its cut flow. Poor fits (line fits, gain-map cells, gain
 drift, modulation-factor curve) raise a :class:`~trackfit.analysis.fitquality.FitQualityWarning`.
@@ -27,12 +32,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .calfile import Calibration, make_provenance
+from .estimates import estimator_of, with_estimate
 from .fitquality import warn_if_poor
 from .gainmap import GainCellError, choose_gain_cell_mm, fit_gain_map
 from .gaintime import fit_gain_drift
 from .linefinder import fit_line_near, nominal_counts_per_kev, scan_gain
 from .modfactor import fit_modulation_factor_curve, measure_modulation_factor
-from .polarimetry import event_weights
+from .polarimetry import WEIGHTINGS, event_weights
+from .response_weights import fit_modulation_response
 from .selection import Cut, NoEventsLeftError, select_rows, with_default
 from .spectrum import FE55_KALPHA_KEV, EnergyScale, LineFit, fit_fe55
 from .spurious import cell_edges, centred_cell_edges, measure_spurious_map
@@ -114,6 +121,25 @@ def _concat(tables, columns):
     return {c: np.concatenate([np.asarray(t[c]) for t in tables]) for c in columns}
 
 
+def _with_one_estimate(estimator, unpolarized, polarized):
+    """The estimate of the unpolarized and polarized runs (one for all) and the runs with its columns in place."""
+    import dataclasses
+
+    runs = list(unpolarized) + list(polarized)
+    if estimator is None:
+        found = {run.label or f"run {k}": estimator_of(run.table) for k, run in enumerate(runs)}
+        if len(set(found.values())) > 1:
+            raise ValueError(f"the unpolarized and polarized tables were reconstructed with different emission "
+                             f"estimates ({', '.join(f'{k}: {v}' for k, v in found.items())}): give one estimator "
+                             "(--estimator) that all of them hold")
+        estimator = next(iter(found.values()), "two-stage")
+
+    def swapped(run):
+        return dataclasses.replace(run, table=with_estimate(run.table, estimator, name=f"table '{run.label}'"))
+
+    return estimator, [swapped(r) for r in unpolarized], [swapped(r) for r in polarized]
+
+
 def _selected(run, selection, role, report):
     """The rows of a run that pass the selection; the cut flow goes to the report; none left is an error."""
     flow = selection.cut_flow(run.table)
@@ -147,7 +173,8 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
                       gain_cell_mm: float | None = None, gain_min_counts: int = 300, gain_drift: bool = False,
                       drift_slices: int = 20, quadratic: bool = False, spurious_cell_mm: float = 2.0,
                       spurious_min_counts: int = 100, spurious_energy_edges_kev=None, extent_mm=None,
-                      base: Calibration | None = None) -> tuple[Calibration, CalibrationReport]:
+                      base: Calibration | None = None,
+                      estimator: str | None = None) -> tuple[Calibration, CalibrationReport]:
     """Make calibration parts from runs (see the module docstring for the steps).
 
     Parameters
@@ -164,8 +191,9 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         Cuts on unpolarized and polarized events (after calibration), added to the default selection.
     flat_selection : Cut, optional
         Cuts on flat-field and line events (before calibration), added to the default selection.
-    weighting : {"none", "ellipticity"}
-        Per-event weights for steps 3 and 4.
+    weighting : {"none", "ellipticity", "response"}
+        Per-event weights for steps 4 and 5; ``"response"`` fits the modulation response on the polarized runs
+        first (step 3), or uses the one of ``base`` when there are no polarized runs.
     gain_cell_mm : float, optional
         Gain-map cell size; default: chosen from the event count (:func:`~trackfit.analysis.gainmap.
         choose_gain_cell_mm`, the smallest size for which 80 % of the events lie in cells of ``gain_min_counts``).
@@ -183,6 +211,9 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         Region covered by the maps (default: each map's cells centred on its own data).
     base : Calibration, optional
         Start from these parts (those made here replace them).
+    estimator : {"two-stage", "adaptive", "skeleton"}, optional
+        The emission-angle estimate of the unpolarized and polarized tables to use (default: the one they were
+        reconstructed with, which must then be the same for all of them).
 
     Raises
     ------
@@ -193,9 +224,16 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
     """
     selection = with_default(selection)
     flat_selection = with_default(flat_selection)
+    if weighting not in WEIGHTINGS:
+        raise ValueError(f"unknown weighting {weighting!r}; expected one of {WEIGHTINGS}")
     cal = base if base is not None else Calibration()
     report = CalibrationReport(selection=selection, flat_selection=flat_selection)
-    science_record = dict(weights=weighting)
+    estimator, unpolarized, polarized = _with_one_estimate(estimator, unpolarized, polarized)
+    if weighting == "response" and not polarized and (cal.modulation_response is None
+                                                      or cal.estimator_of("modulation_response") != estimator):
+        raise ValueError("weighting='response' needs polarized runs to fit the modulation response (or a base "
+                         f"calibration with a modulation response made with the {estimator!r} estimate)")
+    science_record = dict(weights=weighting, estimator=estimator)
     line_points = []  # (label, energy_kev, LineFit)
     gain = None
 
@@ -315,6 +353,19 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
             raise NoEventsLeftError(f"in {role} run '{run.label}'", flow)
         events = select_rows(columns, selection.mask(columns))
         return events, event_weights(events, weighting)
+
+    if weighting == "response" and polarized:
+        fit_runs = []
+        for run in polarized:
+            columns = cal.apply(run.table)
+            events = select_rows(columns, selection.mask(columns))
+            fit_runs.append((events, events["emission_rad"], run.polarization_degree, run.polarization_angle_rad))
+        response = fit_modulation_response(fit_runs)
+        cal = cal.with_part("modulation_response", response, make_provenance(
+            runs=[r.label for r in polarized], inputs=[table_identity(r.table, r.label) for r in polarized],
+            beams=[{"degree": r.polarization_degree, "angle_rad": r.polarization_angle_rad} for r in polarized],
+            features=list(response.features), cuts=selection.to_dict(), selection=selection.describe(),
+            weights="response", estimator=estimator))
 
     if unpolarized:
         if cal.energy_scale is None:

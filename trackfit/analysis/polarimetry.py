@@ -8,13 +8,13 @@ defaults fit, and the pieces (:mod:`~trackfit.analysis.selection`, :class:`~trac
 from __future__ import annotations
 
 import html
-import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from .calfile import Calibration
+from .calfile import ESTIMATE_PARTS, Calibration
+from .estimates import EstimateMismatchError, estimator_of, with_estimate
 from .fitquality import warn_if_poor
 from .modulation import ModulationFit, modulation_curve
 from .selection import (
@@ -22,7 +22,6 @@ from .selection import (
     CutFlow,
     EnergyWindow,
     NoEventsLeftError,
-    SelectionMismatchWarning,
     select_rows,
     warn_if_selections_differ,
     with_default,
@@ -32,17 +31,24 @@ from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weig
 __all__ = ["PolarizationMeasurement", "measure_polarization", "event_weights", "WEIGHTINGS"]
 
 #: per-event weighting schemes known by name
-WEIGHTINGS = ("none", "ellipticity")
+WEIGHTINGS = ("none", "ellipticity", "response")
 
 
 def event_weights(table: Mapping, weighting) -> np.ndarray | None:
     """Per-event weights of a table: ``"none"`` -> None, ``"ellipticity"`` -> :func:`ellipticity_weights`,
-    or an array (one weight per row)."""
+    ``"response"`` -> the column ``response_weight`` (the expected modulation response of each event, added by
+    :meth:`Calibration.apply` from a calibration's modulation-response part; ``docs/methods.md`` §11), or an array
+    (one weight per row)."""
     if weighting is None or (isinstance(weighting, str) and weighting == "none"):
         return None
     if isinstance(weighting, str):
         if weighting == "user_weight":  # per-row weights attached by measure_polarization
             return np.asarray(table["user_weight"], dtype=float)
+        if weighting == "response":
+            if "response_weight" not in table:
+                raise ValueError("the weights 'response' need a calibration with a modulation-response part "
+                                 "(made by trackfit calibrate --weights response with polarized runs)")
+            return np.asarray(table["response_weight"], dtype=float)
         if weighting != "ellipticity":
             raise ValueError(f"unknown weighting {weighting!r}; expected one of {WEIGHTINGS} or an array")
         return ellipticity_weights(table["m2_major_mm2"], table["m2_minor_mm2"])
@@ -238,8 +244,8 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
                          modulation_factor: float | None = None, weighting="none",
                          background_selection: Cut | None = None, background_table: Mapping | None = None,
                          background_scale: float | None = None, energy_bands_kev=None, n_bins: int = 36,
-                         use_gain_drift: bool = False,
-                         confidence_level: float = ONE_SIGMA_LEVEL) -> PolarizationMeasurement:
+                         use_gain_drift: bool = False, confidence_level: float = ONE_SIGMA_LEVEL,
+                         estimator: str | None = None) -> PolarizationMeasurement:
     """Select events, apply a calibration, and measure the polarization.
 
     Parameters
@@ -250,16 +256,17 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Cuts on the source events, added to the default selection (:class:`~trackfit.analysis.UsableEvents`: an
         emission angle and no failure bit), which is the first step of the cut flow. With a calibration, a
         warning (:class:`~trackfit.analysis.SelectionMismatchWarning`) says when its status and track-shape cuts
-        or its weights differ from those the calibration's modulation factor or spurious map was made with.
+        differ from those the calibration's modulation factor or spurious map was made with.
     calibration : Calibration, optional
         Applied before the selection (so energy cuts use calibrated energies); its modulation-factor curve
         and spurious map are used per event, and the statistical errors of the spurious map are added to the
         errors of the Stokes parameters (events of one cell share the map's error).
     modulation_factor : float, optional
         One modulation factor for all events (overrides the calibration's curve).
-    weighting : {"none", "ellipticity"} or array_like
-        Per-event weights (Di Marco et al. 2022), or one weight per table row; the modulation factor must be
-        measured with the same weights.
+    weighting : {"none", "ellipticity", "response"} or array_like
+        Per-event weights (Di Marco et al. 2022; ``"response"``: the calibration's modulation response,
+        ``docs/methods.md`` §11), or one weight per table row; the modulation factor must be measured with the
+        same weights: a calibration whose modulation factor or spurious map was made with other weights is refused.
     background_selection : Cut, optional
         Off-source events (added to the default selection), taken from ``background_table`` (default: the same
         table), subtracted with ``background_scale`` = (area x time on) / (area x time off) (required with a
@@ -272,13 +279,24 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         Apply the calibration's gain drift (only for the run it was measured on).
     confidence_level : float
         Level of the Rice interval of the degree.
+    estimator : {"two-stage", "adaptive", "skeleton"}, optional
+        The emission-angle estimate of the table to use (default: the one it was reconstructed with;
+        :func:`trackfit.analysis.estimates.estimator_of`). A calibration made with another estimate is refused.
 
     Raises
     ------
     NoEventsLeftError
         No source event passes the selection (the message shows the cut flow).
+    EstimateMismatchError
+        The calibration's modulation factor, spurious map or modulation response was made with another estimate
+        or other weights (the message names both).
     """
     selection = with_default(selection)
+    chosen = estimator_of(table) if estimator is None else estimator
+    _check_estimate_against_calibration(chosen, weighting, calibration, modulation_factor)
+    table = with_estimate(table, chosen)
+    if background_table is not None:
+        background_table = with_estimate(background_table, chosen, name="the background table")
     if not isinstance(weighting, str) and weighting is not None:  # per-row weights travel with the rows
         w = np.asarray(weighting, dtype=float)
         n_rows = len(table["emission_rad"])
@@ -343,7 +361,8 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         warn_if_poor(modulation.quality, f"the modulation curve A + B cos²(φ − φ0) ({n_bins} bins)",
                      advice="the angles hold structure other than cos 2φ, e.g. the 60° pattern of the pixel grid; "
                      "the Stokes result does not assume the curve's shape")
-    settings = {"selection": selection.to_dict(), "weighting": weighting if isinstance(weighting, str) else "array",
+    settings = {"selection": selection.to_dict(), "estimator": chosen,
+                "weighting": weighting if isinstance(weighting, str) else "array",
                 "modulation_factor": modulation_factor, "calibration_parts": calibration.parts() if calibration
                 else [], "background_selection": None if background_selection is None
                 else background_selection.to_dict(), "background_scale": background_scale, "n_bins": n_bins,
@@ -355,8 +374,39 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
                                    spurious_map_q_err=map_q_err, spurious_map_u_err=map_u_err, settings=settings)
 
 
+def _used_parts(calibration, modulation_factor) -> list[str]:
+    """The calibration parts that depend on the estimate and the weights and that this measurement uses."""
+    return [name for name in ESTIMATE_PARTS if getattr(calibration, name) is not None
+            and not (name == "modulation_factor" and modulation_factor is not None)]
+
+
+def _check_estimate_against_calibration(estimator, weighting, calibration, modulation_factor):
+    """Refuse a calibration whose parts were made with another emission estimate or other weights."""
+    if calibration is None:
+        return
+    weights = "none" if weighting is None else weighting if isinstance(weighting, str) else "array"
+    for name in _used_parts(calibration, modulation_factor):
+        if name == "modulation_response" and weights != "response":
+            continue  # the response is only used as weights
+        made_with = calibration.estimator_of(name)
+        label = name.replace("_", " ")
+        if made_with != estimator:
+            raise EstimateMismatchError(
+                f"the calibration's {label} was made with the {made_with!r} emission estimate, this measurement "
+                f"uses the {estimator!r} estimate: analyse the {made_with!r} estimate (--estimator {made_with}) or "
+                f"calibrate again with the {estimator!r} estimate")
+        weights_made_with = calibration.weights_of(name)
+        if name != "modulation_response" and weights_made_with is not None and weights not in ("array",) \
+                and weights_made_with != weights:
+            raise EstimateMismatchError(
+                f"the calibration's {label} was made with weights {weights_made_with!r}, this measurement uses "
+                f"{weights!r}: measure with --weights {weights_made_with}, or calibrate again with --weights "
+                f"{weights} (the modulation factor and spurious map must be made with the weights of the analysis, "
+                "Di Marco et al. 2022)")
+
+
 def _check_against_calibration(selection, weighting, calibration, modulation_factor):
-    """Warn when the selection or weights differ from those of the calibration parts that are used."""
+    """Warn when the selection differs from those of the calibration parts that are used."""
     if calibration is None:
         return
     used = [name for name in ("modulation_factor", "spurious_modulation") if getattr(calibration, name) is not None
@@ -368,10 +418,3 @@ def _check_against_calibration(selection, weighting, calibration, modulation_fac
             seen.add(repr(reference.to_dict()))
             warn_if_selections_differ(selection, reference, what="this measurement",
                                       reference_name=f"the calibration's {name.replace('_', ' ')}", stacklevel=4)
-        made_with = calibration.weights_of(name)
-        weights = "none" if weighting is None else weighting  # per-row arrays arrive as "user_weight": not compared
-        if made_with is not None and weights != "user_weight" and made_with != weights:
-            warnings.warn(SelectionMismatchWarning(
-                f"the calibration's {name.replace('_', ' ')} was made with weights '{made_with}', this measurement "
-                f"uses '{weights}': measure the modulation factor and spurious map with the weights of the analysis "
-                "(Di Marco et al. 2022)"), stacklevel=3)

@@ -64,8 +64,14 @@ def register(subparsers):
                         "(default: one node per run)")
     parser.add_argument("--extent-mm", nargs=4, type=float, metavar=("X0", "X1", "Y0", "Y1"),
                         help="region covered by the maps (default: cells centred on each map's data)")
-    parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
-                        help="per-event weights for the spurious map and modulation factor (default none)")
+    parser.add_argument("--weights", choices=("none", "ellipticity", "response"), default="none",
+                        help="per-event weights for the spurious map and modulation factor; response: each event's "
+                        "expected modulation response from its shape, fitted on the --polarized runs and stored "
+                        "in the file (docs/methods.md section 11) (default none)")
+    parser.add_argument("--estimator", choices=("two-stage", "adaptive", "skeleton"),
+                        help="emission-angle estimate of the --unpolarized and --polarized tables to use (default: "
+                        "the one they were reconstructed with); recorded in the file, trackfit polarization refuses "
+                        "another")
     parser.add_argument("--figures", metavar="DIR", help="write figures of every fit as PNG (default: no figures)")
     parser.add_argument("--overwrite", action="store_true", help="replace an existing output file")
     add_cut_options(parser, what="unpolarized and polarized events, after calibration (use the same in "
@@ -183,7 +189,7 @@ def _run(args) -> int:
                 gain_cell_mm=args.gain_cell_mm, gain_min_counts=args.gain_min_counts, gain_drift=args.gain_drift,
                 quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
                 spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
-                extent_mm=args.extent_mm, base=base)
+                extent_mm=args.extent_mm, base=base, estimator=args.estimator)
         except NoEventsLeftError:
             raise
         except ValueError as err:  # messages naming build_calibration's parameters (gain_cell_mm=...) name flags

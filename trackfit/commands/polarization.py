@@ -26,15 +26,20 @@ def register(subparsers):
         "Rice-based interval of the degree and the MDP99; optionally per energy band and with an off-source "
         "background subtracted. Events: the default selection (an emission angle and no failure status bit), plus "
         "the cuts given; it is the first line of the cut flow. A warning says when the status and track-shape cuts "
-        "or the weights differ from those the calibration was made with.")
+        "differ from those the calibration was made with; a calibration made with other weights or another "
+        "emission-angle estimate is refused.")
     parser.add_argument("table", metavar="TABLE", help="event table of the run (trackfit reconstruct output)")
     parser.add_argument("-c", "--calibration", metavar="CAL",
                         help="calibration file (trackfit calibrate output; default: none, then give "
                         "--modulation-factor)")
     parser.add_argument("--modulation-factor", type=float, metavar="MU",
                         help="one modulation factor for all events, in (0, 1] (default: the calibration's curve)")
-    parser.add_argument("--weights", choices=("none", "ellipticity"), default="none",
-                        help="per-event weights; the calibration must have been made with the same (default none)")
+    parser.add_argument("--weights", choices=("none", "ellipticity", "response"), default="none",
+                        help="per-event weights; response needs a calibration made with --weights response; the "
+                        "calibration must have been made with the same weights (default none)")
+    parser.add_argument("--estimator", choices=("two-stage", "adaptive", "skeleton"),
+                        help="emission-angle estimate of the table to use (default: the one it was reconstructed "
+                        "with); the calibration must have been made with the same")
     parser.add_argument("--bands", nargs="+", type=float, metavar="E_KEV",
                         help="energy band edges in keV for a per-band table (default: no per-band table)")
     parser.add_argument("--bins", type=int, default=36, metavar="N",
@@ -95,7 +100,7 @@ def _run(args) -> int:
             table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
             weighting=args.weights, background_selection=background_selection, background_table=background_table,
             background_scale=args.background_scale, energy_bands_kev=args.bands, n_bins=args.bins,
-            use_gain_drift=args.use_gain_drift, confidence_level=args.confidence)
+            use_gain_drift=args.use_gain_drift, confidence_level=args.confidence, estimator=args.estimator)
     print(f"run: {args.table}" + (f"   calibration: {args.calibration}" if args.calibration else ""))
     print(measurement)
     if args.json:

@@ -36,7 +36,8 @@ def register(subparsers):
         "reconstruct", help="reconstruct raw event files into event tables",
         description="Clean each event (threshold, bad pixels, main cluster) and run the two-stage moment "
         "analysis: energy, conversion point and emission angle of every event, one table row per input event "
-        "(docs/table-format.md). Energies in keV need the detector's ADC counts per keV: counts_per_kev in "
+        "(docs/table-format.md); with --estimator adaptive or skeleton, also that estimate's columns "
+        "(docs/methods.md section 11). Energies in keV need the detector's ADC counts per keV: counts_per_kev in "
         "--config, else the raw file's nominal scale (simulated files); without either the table is marked "
         "uncalibrated.")
     parser.add_argument("raw", nargs="+", metavar="RAW", help="raw event file(s)")
@@ -58,6 +59,9 @@ def register(subparsers):
     parser.add_argument("--threshold-noise-rms", type=float, metavar="K",
                         help="cut each pixel at K times its own noise from the pixel map instead of one ADC value "
                         "(default: the config's threshold_noise_rms, 0 = off)")
+    parser.add_argument("--estimator", choices=("two-stage", "adaptive", "skeleton"),
+                        help="emission-angle estimate the tables offer to the analysis (overrides the config's "
+                        "emission_estimator; default: the config's); the two-stage columns are always written")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
                         help="files reconstructed in parallel, one process each (default 1)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
@@ -175,6 +179,10 @@ def run(args) -> int:
         raise CommandError(f"--threads must be >= 1 (got {args.threads})")
     config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
     config = _with_pixel_map(config, args)
+    if args.estimator is not None:
+        from dataclasses import replace
+
+        config = replace(config, emission_estimator=args.estimator)
     jobs = _jobs(args)
     totals = []
     for raw, _ in jobs:

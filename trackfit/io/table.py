@@ -81,6 +81,21 @@ COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
     "m3_major_mm3": ("float32", "mm^3", "third moment along the first-pass axis"),
     "peak_adc": ("int16", "ADC", "largest pixel signal of the main cluster (saturation checks); 0 without one"),
     "n_conv_pixels": ("int32", "", "pixels used for the conversion point"),
+    # emission estimators beyond the two-stage analysis (trackfit.recon.estimators, docs/methods.md section 11)
+    "adaptive_emission_rad": ("float32", "rad", "adaptive estimate of the emission angle, (-pi, pi]"),
+    "adaptive_conv_x_mm": ("float32", "mm", "adaptive estimate of the conversion point, x"),
+    "adaptive_conv_y_mm": ("float32", "mm", "adaptive estimate of the conversion point, y"),
+    "adaptive_head_score": ("float32", "", "head score m3/m2^1.5 + density asymmetry along axis_rad; the start is "
+                                           "on the side of its sign"),
+    "adaptive_status": ("uint16", "", "fallbacks of the adaptive estimate (NO_SKEWNESS, NO_CONVERSION_PIXELS, "
+                                      "SECOND_PASS_FALLBACK bits of trackfit.recon.status.Status)"),
+    "skeleton_emission_rad": ("float32", "rad", "skeleton estimate of the emission angle, (-pi, pi] (the adaptive "
+                                                "one where skeleton_path_mm is 0)"),
+    "skeleton_conv_x_mm": ("float32", "mm", "skeleton estimate of the conversion point, x"),
+    "skeleton_conv_y_mm": ("float32", "mm", "skeleton estimate of the conversion point, y"),
+    "skeleton_path_mm": ("float32", "mm", "length of the centre line the skeleton estimate used; 0 where the "
+                                          "adaptive estimate was kept"),
+    "skeleton_status": ("uint16", "", "fallbacks of the skeleton estimate (as adaptive_status)"),
 }
 
 

@@ -121,7 +121,7 @@ def subtract_pedestals(lo, hi, roi, start, signal, bad, pedestal, n_columns, n_r
 @jit
 def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_columns, pitch_mm, row_pitch_mm, x0_mm,
                       y0_mm, parity, threshold, min_pixels, r_inner, r_outer, length_mm, centre_on_conversion,
-                      counts_per_kev, saturation_adc, out_f, out_i):
+                      counts_per_kev, saturation_adc, main_mask, out_f, out_i):
     """Reconstruct events ``lo <= i < hi`` of a batch into rows of ``out_f`` / ``out_i``.
 
     Parameters
@@ -153,6 +153,9 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
         Second-pass moments about the conversion point (True) or the weighted centroid (False).
     counts_per_kev : float
     saturation_adc : int
+    main_mask : uint8 (M,) or empty
+        When not empty, set to 1 for the pixels of each event's main cluster and 0 for its other pixels (the
+        estimators of :mod:`trackfit.recon.estimators` start from it); malformed events are left untouched.
     out_f : float64 (N, len(FLOAT_COLUMNS)); out_i : int64 (N, len(INT_COLUMNS))
     """
     max_area = 1
@@ -169,6 +172,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
     pq = np.empty(max_area, np.float64)
     use_mask = mask.size > 0
     use_thresholds = thresholds.size > 0
+    write_main = main_mask.size > 0
     chip_size = mask.size if use_mask else thresholds.size
     nan = np.nan
     inv_scale = 1.0 / length_mm  # weights exp(-D * inv_scale), as in the reference
@@ -197,6 +201,9 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
                 c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > chip_size)):
             out_i[i, _I_STATUS] = _MALFORMED
             continue
+        if write_main:
+            for k in range(area):
+                main_mask[s0 + k] = 0
 
         # ---- cleaning: zero suppression (branch-free scan; one threshold or one per pixel), bad-pixel mask
         n_hit = 0
@@ -293,6 +300,8 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
         for j in range(n_hit):
             k = hits[j]
             if label[k] == best:
+                if write_main:
+                    main_mask[s0 + k] = 1
                 rr = int((k + 0.5) * inv_nc)
                 cc = k - rr * nc
                 v = signal[s0 + k]

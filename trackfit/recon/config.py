@@ -21,9 +21,12 @@ import numpy as np
 
 from .._toml import dumps
 
-__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV"]
+__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV",
+           "EMISSION_ESTIMATORS"]
 
 SECOND_PASS_CENTRES = ("conversion_point", "weighted_centroid")
+#: the values of ``emission_estimator`` (trackfit.recon.estimators)
+EMISSION_ESTIMATORS = ("two-stage", "adaptive", "skeleton")
 
 #: ADC counts per keV used when neither the settings nor the raw file give a scale: the nominal value of the
 #: He/DME design of the simulator presets (gas gain 2000, W = 24 eV, 25 electrons per ADC count), so that such
@@ -59,6 +62,11 @@ SETTING_NOTES = {
                  "pedestal-subtracted, and its hot, dead and noisy pixels are ignored",
     "threshold_noise_rms": "0: every pixel is cut at threshold_adc; > 0 (needs pixel_map): each pixel is cut at "
                            "this many times its own noise from the map",
+    "emission_estimator": 'the emission-angle estimate the table offers to the analysis: "two-stage" (the '
+                          'published moment analysis, columns emission_rad, conv_x_mm, conv_y_mm, always written), '
+                          '"adaptive" (per-track settings and a head score, adaptive_* columns) or "skeleton" (the '
+                          'centre line of long tracks with scikit-image, skeleton_* columns; slow); '
+                          "docs/methods.md section 11",
 }
 
 #: values renamed the same way (setting -> {old value: new value})
@@ -112,6 +120,13 @@ class ReconConfig:
         0 (default): every pixel is cut at ``threshold_adc``. > 0 (needs ``pixel_map``): each pixel is hit when its
         signal is > ``threshold_noise_rms`` times its own noise from the map (pixels the map could not judge use
         the chip's median noise).
+    emission_estimator : {"two-stage", "adaptive", "skeleton"}
+        The emission-angle estimate the table offers to the analysis (``docs/methods.md`` §11). The two-stage
+        columns (``emission_rad``, ``conv_x_mm``, ``conv_y_mm``) are always written; ``"adaptive"`` adds the
+        ``adaptive_*`` columns (the two-stage analysis with settings scaled by each track's size and a head score
+        that also weighs the charge density), ``"skeleton"`` adds those and the ``skeleton_*`` columns (the start
+        and first direction of long tracks from their centre line, with scikit-image; about a thousand times
+        slower, for the argon design above ~15 keV). Default ``"two-stage"``.
 
     Examples
     --------
@@ -133,6 +148,7 @@ class ReconConfig:
     bad_pixels: tuple = ()
     pixel_map: str = ""
     threshold_noise_rms: float = 0.0
+    emission_estimator: str = "two-stage"
 
     def __post_init__(self):
         def number(name, value, *, integer=False):
@@ -173,6 +189,9 @@ class ReconConfig:
             raise ValueError(f"'pixel_map' must be the path of a pixel-map file, or empty (got {self.pixel_map!r})")
         if number("threshold_noise_rms", self.threshold_noise_rms) < 0:
             raise ValueError(f"'threshold_noise_rms' must be >= 0 (got {self.threshold_noise_rms})")
+        if self.emission_estimator not in EMISSION_ESTIMATORS:
+            raise ValueError(f"'emission_estimator' must be one of {EMISSION_ESTIMATORS} "
+                             f"(got {self.emission_estimator!r})")
         if self.threshold_noise_rms > 0 and not self.pixel_map:
             raise ValueError(f"'threshold_noise_rms' = {self.threshold_noise_rms:g} needs a 'pixel_map' with the "
                              "noise of each pixel")

@@ -28,6 +28,7 @@ from ..io.pixelmap import read_pixel_map
 from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range, subtract_pedestals
 from .config import ReconConfig
+from .estimators import EstimatorRunner
 
 __all__ = ["reconstruct", "reconstruct_file", "content_fingerprint", "TABLE_COLUMNS", "TRUTH_PREFIX",
            "DEFAULT_BATCH_SIZE", "output_name"]
@@ -103,6 +104,7 @@ class _Prepared:
             config.second_pass_length_mm, config.second_pass_centre == "conversion_point", self.counts_per_kev,
             config.saturation_adc,
         )
+        self.estimates = EstimatorRunner(config.emission_estimator, grid)
 
     def check_pedestals(self, pedestal_subtracted: bool) -> None:
         """Refuse signal before pedestal subtraction when there is no pixel map to subtract with."""
@@ -129,8 +131,13 @@ class _Prepared:
             for future in futures:
                 future.result()
 
-    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None):
-        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute)."""
+    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None, *,
+            estimates: dict | None = None):
+        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute).
+
+        ``estimates``, when given, receives the columns of the config's emission estimator
+        (:mod:`trackfit.recon.estimators`; none for ``"two-stage"``).
+        """
         n = len(batch)
         self.check_pedestals(batch.pedestal_subtracted)
         signal = batch.signal
@@ -140,20 +147,43 @@ class _Prepared:
                                                 self.grid.n_columns, self.grid.n_rows, signal), threads, pool)
         out_f = np.empty((n, len(FLOAT_COLUMNS)), np.float64)
         out_i = np.empty((n, len(INT_COLUMNS)), np.int64)
-        common = (batch.roi, batch.start, signal, batch.bad, *self.args, out_f, out_i)
+        with_estimates = estimates is not None and self.estimates.needs_main_mask
+        main_mask = np.zeros(signal.size if with_estimates else 0, np.uint8)
+        common = (batch.roi, batch.start, signal, batch.bad, *self.args, main_mask, out_f, out_i)
         self._split(reconstruct_range, n, common, threads, pool)
+        if with_estimates:
+            estimates.update(self.estimates.run(
+                batch, signal, main_mask, out_i[:, INT_COLUMNS.index("status")].copy(),
+                out_f[:, FLOAT_COLUMNS.index("m2_major_mm2")], lambda kernel, args: self._split(
+                    kernel, n, args, threads, pool)))
         return out_f, out_i
 
+
+#: dtypes of the columns the emission estimators add (trackfit.recon.estimators, docs/table-format.md)
+ESTIMATE_DTYPES: dict[str, np.dtype] = {
+    "adaptive_emission_rad": np.dtype(np.float32),
+    "adaptive_conv_x_mm": np.dtype(np.float32),
+    "adaptive_conv_y_mm": np.dtype(np.float32),
+    "adaptive_head_score": np.dtype(np.float32),
+    "adaptive_status": np.dtype(np.uint16),
+    "skeleton_emission_rad": np.dtype(np.float32),
+    "skeleton_conv_x_mm": np.dtype(np.float32),
+    "skeleton_conv_y_mm": np.dtype(np.float32),
+    "skeleton_path_mm": np.dtype(np.float32),
+    "skeleton_status": np.dtype(np.uint16),
+}
 
 #: prefix of the columns copied from the simulation truth of a batch (``/truth`` of a simulated raw file)
 TRUTH_PREFIX = "truth_"
 
 
-def _columns(batch: EventBatch, out_f, out_i) -> dict[str, np.ndarray]:
+def _columns(batch: EventBatch, out_f, out_i, estimates=None) -> dict[str, np.ndarray]:
     values = {"event_index": batch.index, "trigger_id": batch.trigger_id, "time_s": batch.time_s}
     values.update({name: out_f[:, k] for k, name in enumerate(FLOAT_COLUMNS)})
     values.update({name: out_i[:, k] for k, name in enumerate(INT_COLUMNS)})
     columns = {name: np.ascontiguousarray(values[name], dtype=dtype) for name, dtype in TABLE_COLUMNS.items()}
+    for name, values in (estimates or {}).items():  # the estimator's columns (trackfit.recon.estimators)
+        columns[name] = np.ascontiguousarray(values, dtype=ESTIMATE_DTYPES[name])
     for key in sorted(batch.truth):
         values = np.asarray(batch.truth[key])
         if values.ndim == 1 and values.dtype.kind in "biuf":
@@ -220,12 +250,13 @@ def reconstruct(batch: EventBatch, config=None, *, threads: int = 1, run_info=No
     scale = config.energy_scale(run_info)
     prepared = _Prepared(config, batch.grid, scale[0])
     prepared.check_pedestals(batch.pedestal_subtracted)
+    estimates: dict = {}
     if threads > 1:
         with ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") as pool:
-            out_f, out_i = prepared.run(batch, threads, pool)
+            out_f, out_i = prepared.run(batch, threads, pool, estimates=estimates)
     else:
-        out_f, out_i = prepared.run(batch)
-    return EventTable(_columns(batch, out_f, out_i),
+        out_f, out_i = prepared.run(batch, estimates=estimates)
+    return EventTable(_columns(batch, out_f, out_i, estimates),
                       {**_base_provenance(config, batch.grid, scale), **prepared.provenance()})
 
 
@@ -359,9 +390,10 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
                 for batch in _prefetched(read, bounds):
                     if failure:
                         break
-                    out_f, out_i = prepared.run(batch, threads, pool)
-                    work.put(_columns(batch, out_f, out_i))
-                    del out_f, out_i
+                    estimates: dict = {}
+                    out_f, out_i = prepared.run(batch, threads, pool, estimates=estimates)
+                    work.put(_columns(batch, out_f, out_i, estimates))
+                    del out_f, out_i, estimates
                     update(len(batch))
                     del batch
             finally:
