@@ -13,9 +13,10 @@ What to use when
 
 Each point simulates ``n_events`` triggered events of a monochromatic, 100 %-polarized beam (Gaussian spot at the
 chip centre) and reconstructs them with a :class:`~trackfit.ReconConfig`; μ is the modulation amplitude of the
-emission angles of fully reconstructed events, ``2 sqrt(<cos 2φ>² + <sin 2φ>²)`` (Kislat et al. 2015), with
-error ``sqrt(2/N)``; the resolution is a Gaussian fit of the pulse-height peak (:func:`trackfit.analysis.fit_line`)
-within ±25 % of its median. Results print as a table (``to_markdown``) and convert to rows of plain values.
+emission angles (of the config's ``emission_estimator``, docs/methods.md §11) of fully reconstructed events,
+``2 sqrt(<cos 2φ>² + <sin 2φ>²)`` (Kislat et al. 2015), with error ``sqrt(2/N)``; the resolution is a Gaussian fit of
+the pulse-height peak (:func:`trackfit.analysis.fit_line`) within ±25 % of its median. Results print as a table
+(``to_markdown``) and convert to rows of plain values.
 
 The simulator layer gives the physics; this module (on the analysis layer: it reconstructs) only runs it.
 
