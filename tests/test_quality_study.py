@@ -22,15 +22,19 @@ def small_study():
                              keep_tables=True)
 
 
-def test_reference_modulation_factor_is_the_one_of_trackfit_calibrate(small_study, tmp_path, capsys):
-    # the same events, selection and estimator: equal numbers (a consistency check, not an outside one)
+@pytest.mark.parametrize("method, flags", [(REFERENCE.name, ["--estimator", "two-stage"]),
+                                           ("adaptive", ["--estimator", "adaptive"]),
+                                           ("two-stage + ellipticity", ["--estimator", "two-stage",
+                                                                        "--weights", "ellipticity"])])
+def test_modulation_factor_is_the_one_of_trackfit_calibrate(small_study, tmp_path, capsys, method, flags):
+    # the reference column and the other estimates and weights: the same events, selection, estimate and weights
+    # through the command line give equal numbers (a consistency check of the harness, not an outside one)
     ((energy, role, key), table), = [(k, t) for k, t in small_study.tables.items() if k[1] == "polarized"]
     path = write_table(tmp_path / "pol.h5", table)
-    assert main(["calibrate", "-o", str(tmp_path / "cal.h5"), "--polarized", f"{path},angle_deg=0",
-                 "--estimator", "two-stage"]) == 0
+    assert main(["calibrate", "-o", str(tmp_path / "cal.h5"), "--polarized", f"{path},angle_deg=0", *flags]) == 0
     capsys.readouterr()
     curve = Calibration.load(tmp_path / "cal.h5").modulation_factor
-    row = small_study.row(5.9, REFERENCE.name)
+    row = small_study.row(5.9, method)
     assert curve.points_value[0] == pytest.approx(row["modulation_factor"], rel=1e-9)
     assert curve.points_error[0] == pytest.approx(row["modulation_factor_err"], rel=1e-9)
 
