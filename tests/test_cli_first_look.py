@@ -95,7 +95,7 @@ def test_show_writes_a_figure_with_overlay(tmp_path, capsys, monkeypatch):
     out = tmp_path / "event.png"
     assert main(["show", str(path), "--event", "1", "-o", str(out)]) == 0
     text = capsys.readouterr().out
-    assert "reconstruction (main cluster): status=" in text and f"wrote {out}" in text
+    assert "reconstruction (main cluster, adaptive estimate): status=" in text and f"wrote {out}" in text
     assert out.stat().st_size > 10_000
     # title and printout give the same counts and say which is which
     titles = []

@@ -13,7 +13,8 @@ from trackfit.tuning import read_settings, sweep_settings
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_data"
 POLARIZED = SAMPLES / "pol100_5p9kev_30deg.h5"
 UNPOLARIZED = SAMPLES / "fe55_flatfield_unpolarized.h5"
-BASE = ReconConfig(counts_per_kev=3300.0)
+# the sweeps below tune the start search and the second pass: settings of the two-stage estimate
+BASE = ReconConfig(counts_per_kev=3300.0, emission_estimator="two-stage")
 
 
 @pytest.fixture(scope="module")
@@ -119,6 +120,30 @@ def test_bad_grids_are_named():
         sweep_settings(POLARIZED, cut_grid={"energy": [(1, 2)]}, n_events=10)
     with pytest.raises(ValueError, match="start_search_inner_rms"):
         sweep_settings(POLARIZED, recon_grid={"start_search_inner_rms": [-1.0]}, n_events=10)
+
+
+def test_two_stage_settings_are_swept_only_with_the_two_stage_estimate():
+    # the default (adaptive) estimate sets the start search and the second pass per track: a sweep of them would
+    # show the same answer at every point, so it is refused with the way out
+    with pytest.raises(ValueError, match="'start_search_inner_rms', a setting of the two-stage estimate.*"
+                                         "'adaptive'.*emission_estimator = 'two-stage'"):
+        sweep_settings(POLARIZED, recon_grid={"start_search_inner_rms": [1.2, 1.6]},
+                       base_config=ReconConfig(counts_per_kev=3300.0), n_events=10)
+
+
+def test_each_point_is_measured_with_its_own_estimate():
+    result = sweep_settings(POLARIZED, recon_grid={"emission_estimator": ["two-stage", "adaptive"]},
+                            base_config=BASE, n_events=2000)
+    with trackfit.open_raw(POLARIZED) as reader:
+        table = trackfit.reconstruct(reader.read_batch(0, 2000), ReconConfig(counts_per_kev=3300.0))
+    # the default selection: an emission angle and none of the failure bits listed in trackfit.recon.status
+    failures = Status.MALFORMED_INPUT | Status.NO_SIGNAL | Status.TOO_FEW_PIXELS | Status.SINGLE_PIXEL | Status.ROUND
+    for i, column in enumerate(("emission_rad", "adaptive_emission_rad")):
+        assert result.config(i).emission_estimator == ("two-stage", "adaptive")[i]
+        phi = table[column][np.isfinite(table[column]) & ((table["status"] & int(failures)) == 0)].astype(float)
+        # modulation = 2 |<exp(2i phi)>| of a 100 %-polarized run (Kislat et al. 2015)
+        assert result.row(i)["modulation"] == pytest.approx(2 * abs(np.mean(np.exp(2j * phi))), rel=1e-9)
+    assert result.row(0)["modulation"] != result.row(1)["modulation"]
 
 
 def test_settings_file_drives_reconstruct_and_polarization_commands(sweep, tmp_path, capsys):

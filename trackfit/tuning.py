@@ -5,7 +5,11 @@ What to use when: :func:`sweep_settings` evaluates every combination of a grid o
 ``start_search_outer_rms``, ``second_pass_length_mm``) and
 selection cuts (energy window, minimum elongation, minimum pixel count, fiducial radius) on in-memory subsamples of
 a 100 %-polarized (or known-degree) run and an unpolarized run. The kernels run again only when a reconstruction
-parameter changes; cut-only points reuse the event tables. For every point it reports:
+parameter changes; cut-only points reuse the event tables. Each point is measured with the emission estimate of its
+settings (``emission_estimator``); the start search and the second pass (``TWO_STAGE_SETTINGS`` of
+:mod:`trackfit.recon.config`) are settings of the two-stage estimate only, so a sweep of them needs
+``emission_estimator = "two-stage"`` (the default adaptive estimate sets them per track, docs/methods.md §11).
+For every point it reports:
 
 * ``efficiency``: fraction of the polarized subsample kept (the default selection, an emission angle and no failure
   status bit, and the cuts), epsilon;
@@ -278,7 +282,8 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
         An unpolarized run at a similar energy, for the residual (spurious) modulation.
     recon_grid : mapping of str to sequence
         ReconConfig field -> values to try, e.g.
-        ``{"start_search_inner_rms": [1.2, 1.5, 1.8], "second_pass_length_mm": [0.03, 0.05]}``.
+        ``{"start_search_inner_rms": [1.2, 1.5, 1.8], "second_pass_length_mm": [0.03, 0.05]}`` (settings of the
+        two-stage estimate: the base config, or the grid, must then choose ``emission_estimator = "two-stage"``).
     cut_grid : mapping of str to sequence
         Keys of :data:`CUT_PARAMETERS` -> values, e.g. ``{"energy_kev": [(5.0, 7.0)], "elongation_min": [1, 1.5]}``.
         A value ``None`` means "no such cut". Every point keeps the default selection (an emission angle, no
@@ -299,18 +304,31 @@ def sweep_settings(polarized, unpolarized=None, *, recon_grid: Mapping | None = 
     Returns
     -------
     SweepResult
+
+    Raises
+    ------
+    ValueError
+        Unknown or invalid parameters, or a grid that varies a setting of the two-stage estimate
+        (:data:`~trackfit.recon.config.TWO_STAGE_SETTINGS`) at points that analyse another estimate.
     """
     from .analysis import mdp99, selection_from_dict
     from .analysis.estimates import with_estimate
     from .recon import ReconConfig, reconstruct
+    from .recon.config import TWO_STAGE_SETTINGS
 
     base_config = base_config or ReconConfig()
     if not 0 < polarization_degree <= 1:
         raise ValueError(f"'polarization_degree' must be in (0, 1] (got {polarization_degree!r})")
     recon_names, recon_points = _grid(recon_grid, ReconConfig.field_names(), "reconstruction")
     cut_names, cut_points = _grid(cut_grid, list(CUT_PARAMETERS), "cut")
+    varied = [name for k, name in enumerate(recon_names)
+              if name in TWO_STAGE_SETTINGS and len({point[k] for point in recon_points}) > 1]
     for point in recon_points:  # fail early, before any reconstruction, on a bad value
-        replace(base_config, **dict(zip(recon_names, point, strict=True)))
+        config = replace(base_config, **dict(zip(recon_names, point, strict=True)))
+        if varied and config.emission_estimator != "two-stage":
+            raise ValueError(f"recon_grid varies {varied[0]!r}, a setting of the two-stage estimate, but its points "
+                             f"analyse the {config.emission_estimator!r} estimate, which sets its own for each track "
+                             "(docs/methods.md §11): sweep with emission_estimator = 'two-stage' in base_config")
     pol_batch, pol_total = load_subsample(polarized, n_events)
     unpol_batch = load_subsample(unpolarized, n_events)[0] if unpolarized is not None else None
     if len(pol_batch) == 0:

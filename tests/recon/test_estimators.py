@@ -120,7 +120,7 @@ def test_estimate_columns_and_nan_pattern_follow_the_two_stage_status(make_batch
     junk = make_batch(300, 52, grid=HexGrid(), max_side=6)
     batch = EventBatch.concatenate([EventBatch(roi=b.roi, start=b.start, signal=b.signal, grid=b.grid)
                                     for b in (tracks, junk)])
-    two_stage = reconstruct(batch)
+    two_stage = reconstruct(batch, ReconConfig(emission_estimator="two-stage"))
     adaptive = reconstruct(batch, ADAPTIVE)
     assert set(adaptive.columns) - set(two_stage.columns) == set(columns_of("adaptive"))
     for name in two_stage.columns:  # the two-stage columns are unchanged

@@ -9,6 +9,7 @@ from recon_helpers import assert_nan_explained
 from trackfit import EventBatch, RawEventWriter, ReconConfig, read_table, reconstruct, reconstruct_file
 from trackfit.recon import TABLE_COLUMNS, content_fingerprint
 from trackfit.recon._synthetic import toy_tracks
+from trackfit.recon.estimators import columns_of
 from trackfit.recon.status import Status
 
 DOCUMENTED_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters", "pulse_height", "energy_kev",
@@ -36,8 +37,10 @@ def test_columns_and_dtypes_of_the_table_format():
         assert name in table
         assert table[name].dtype == np.dtype(DOCUMENTED_DTYPES.get(name, "float32")), name
     assert list(table)[:len(TABLE_COLUMNS)] == list(TABLE_COLUMNS)
-    # the toy generator's truth follows, prefixed
-    assert list(table)[len(TABLE_COLUMNS):] == ["truth_" + k for k in sorted(toy_tracks(1, 1).truth)]
+    # then the columns of the default emission estimate (docs/table-format.md), then the toy generator's truth,
+    # prefixed
+    added = list(columns_of(ReconConfig().emission_estimator))
+    assert list(table)[len(TABLE_COLUMNS):] == added + ["truth_" + k for k in sorted(toy_tracks(1, 1).truth)]
     assert "config_toml" in table.provenance and "trackfit_version" in table.provenance
 
 

@@ -36,10 +36,11 @@ def register(subparsers):
         "reconstruct", help="reconstruct raw event files into event tables",
         description="Clean each event (threshold, bad pixels, main cluster) and run the two-stage moment "
         "analysis: energy, conversion point and emission angle of every event, one table row per input event "
-        "(docs/table-format.md); with --estimator adaptive or skeleton, also that estimate's columns "
-        "(docs/methods.md section 11). Energies in keV need the detector's ADC counts per keV: counts_per_kev in "
-        "--config, else the raw file's nominal scale (simulated files); without either the table is marked "
-        "uncalibrated.")
+        "(docs/table-format.md); by default also the adaptive estimate of the conversion point and emission "
+        "angle, which the analysis then uses (its adaptive_* columns; --estimator two-stage for the classic "
+        "analysis alone, docs/methods.md section 11). Energies in keV need the detector's ADC counts per keV: "
+        "counts_per_kev in --config, else the raw file's nominal scale (simulated files); without either the table "
+        "is marked uncalibrated.")
     parser.add_argument("raw", nargs="+", metavar="RAW", help="raw event file(s)")
     out = parser.add_mutually_exclusive_group(required=True)
     out.add_argument("-o", "--output", metavar="OUT",
@@ -61,7 +62,8 @@ def register(subparsers):
                         "(default: the config's threshold_noise_rms, 0 = off)")
     parser.add_argument("--estimator", choices=("two-stage", "adaptive", "skeleton"),
                         help="emission-angle estimate the tables offer to the analysis (overrides the config's "
-                        "emission_estimator; default: the config's); the two-stage columns are always written")
+                        "emission_estimator; default: the config's, adaptive unless it says otherwise); the "
+                        "two-stage columns are always written")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
                         help="files reconstructed in parallel, one process each (default 1)")
     parser.add_argument("--scheduler", metavar="ADDRESS",

@@ -11,7 +11,8 @@ def register(subparsers):
     parser = subparsers.add_parser(
         "show", help="draw one event of a raw event file",
         description="Draw one event as filled hexagonal pixels (mm axes, colour bar in ADC counts) with the "
-        "reconstructed centroid, conversion point, principal axis and emission direction on top. Pixels above "
+        "reconstructed centroid, conversion point, principal axis and emission direction (of the settings' "
+        "emission_estimator) on top. Pixels above "
         "the threshold that are not in the main cluster (the only one the reconstruction uses) are hatched. The "
         "title and the printout give both counts: the ROI pixels of the event and the pixels of its main cluster.")
     parser.add_argument("file", help="raw event file")
@@ -47,11 +48,12 @@ def run(args) -> int:
     if args.no_overlay:
         print(roi_line)
     else:
+        from ..analysis.estimates import with_estimate
         from ..recon import ReconConfig, reconstruct
         from ..recon.clusters import event_clusters
 
         config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
-        table = reconstruct(batch, config, run_info=run_info)
+        table = with_estimate(reconstruct(batch, config, run_info=run_info))  # the settings' emission estimate
         result, provenance = table.row(0), table.provenance
         clusters = event_clusters(event, config)
         outside = clusters.outside_main
@@ -59,7 +61,7 @@ def run(args) -> int:
         print(f"{roi_line}, {int((clusters.labels > 0).sum())} above threshold_adc = {config.threshold_adc:g} in "
               f"{clusters.n_clusters} cluster(s); main cluster {int(clusters.in_main.sum())} pixels "
               f"(n_pixels), {int(outside.sum())} pixels outside it (hatched)")
-        print(_describe(result, provenance))
+        print(_describe(result, provenance, config.emission_estimator))
     interactive = matplotlib.get_backend().lower() not in ("agg", "pdf", "svg", "ps", "cairo", "template")
     output = args.output
     if output is None and not interactive:
@@ -77,7 +79,7 @@ def run(args) -> int:
     return 0
 
 
-def _describe(row, provenance) -> str:
+def _describe(row, provenance, estimator: str) -> str:
     import math
 
     from ..io.energy_label import energy_is_calibrated
@@ -97,4 +99,4 @@ def _describe(row, provenance) -> str:
             parts.append(f"{key}={value:.4g}")
         else:
             parts.append(f"{key}={value}")
-    return "reconstruction (main cluster): " + ", ".join(parts)
+    return f"reconstruction (main cluster, {estimator} estimate): " + ", ".join(parts)

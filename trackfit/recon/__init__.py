@@ -1,4 +1,5 @@
-"""Track reconstruction: cleaning and the two-stage moment analysis of raw events (``docs/methods.md`` §2).
+"""Track reconstruction: cleaning and the two-stage moment analysis of raw events (``docs/methods.md`` §2), and by
+default the adaptive emission estimate beside it (:mod:`trackfit.recon.estimators`, ``docs/methods.md`` §11).
 
 What to use when
 ----------------

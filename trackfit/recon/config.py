@@ -5,7 +5,9 @@ Change a setting with :func:`dataclasses.replace` (handy when tuning cuts in a n
     from dataclasses import replace
     from trackfit import ReconConfig
 
-    config = replace(ReconConfig(), start_search_inner_rms=1.2, second_pass_length_mm=0.04)
+    # the classic two-stage analysis with a start search and second pass of one's own
+    config = replace(ReconConfig(), emission_estimator="two-stage", start_search_inner_rms=1.2,
+                     second_pass_length_mm=0.04)
     config.write_toml("recon.toml")           # trackfit reconstruct run.h5 -o run_events.h5 --config recon.toml
 """
 
@@ -22,11 +24,14 @@ import numpy as np
 from .._toml import dumps
 
 __all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV",
-           "EMISSION_ESTIMATORS"]
+           "EMISSION_ESTIMATORS", "TWO_STAGE_SETTINGS"]
 
 SECOND_PASS_CENTRES = ("conversion_point", "weighted_centroid")
 #: the values of ``emission_estimator`` (trackfit.recon.estimators)
 EMISSION_ESTIMATORS = ("two-stage", "adaptive", "skeleton")
+#: settings only the two-stage estimate reads (the adaptive one sets them per track from the track size)
+TWO_STAGE_SETTINGS = ("start_search_inner_rms", "start_search_outer_rms", "second_pass_length_mm",
+                      "second_pass_centre")
 
 #: ADC counts per keV used when neither the settings nor the raw file give a scale: the nominal value of the
 #: He/DME design of the simulator presets (gas gain 2000, W = 24 eV, 25 electrons per ADC count), so that such
@@ -44,13 +49,14 @@ SETTING_NOTES = {
     "threshold_adc": "zero suppression: a pixel takes part when its signal is > threshold_adc (ADC counts); "
                      "about 5 times the pixel noise",
     "min_pixels": "main clusters with fewer pixels get the TOO_FEW_PIXELS status bit (values still computed)",
-    "start_search_inner_rms": "inner radius of the start-point search, in units of the track's rms length "
-                              "sqrt(m2_major_mm2) from the centroid",
-    "start_search_outer_rms": "outer radius of the start-point search, same units",
-    "second_pass_length_mm": "length of the second-pass weights exp(-distance / second_pass_length_mm) from the "
-                             "conversion point (mm)",
-    "second_pass_centre": 'point about which the weighted second moments are taken: "conversion_point" or '
-                          '"weighted_centroid"',
+    "start_search_inner_rms": "two-stage estimate: inner radius of the start-point search, in units of the "
+                              "track's rms length sqrt(m2_major_mm2) from the centroid (the adaptive estimate "
+                              "sets the start search and the second pass of each track from its size)",
+    "start_search_outer_rms": "two-stage estimate: outer radius of the start-point search, same units",
+    "second_pass_length_mm": "two-stage estimate: length of the second-pass weights "
+                             "exp(-distance / second_pass_length_mm) from the conversion point (mm)",
+    "second_pass_centre": 'two-stage estimate: point about which the weighted second moments are taken: '
+                          '"conversion_point" or "weighted_centroid"',
     "counts_per_kev": "ADC counts per keV: energy_kev = pulse_height / counts_per_kev; when not set, the raw "
                       "file's /run attribute nominal_counts_per_kev (simulated files), else the energies are "
                       "marked uncalibrated. For measured data, uncomment the line and set your scale (e.g. Fe-55 "
@@ -62,10 +68,10 @@ SETTING_NOTES = {
                  "pedestal-subtracted, and its hot, dead and noisy pixels are ignored",
     "threshold_noise_rms": "0: every pixel is cut at threshold_adc; > 0 (needs pixel_map): each pixel is cut at "
                            "this many times its own noise from the map",
-    "emission_estimator": 'the emission-angle estimate the table offers to the analysis: "two-stage" (the '
-                          'published moment analysis, columns emission_rad, conv_x_mm, conv_y_mm, always written), '
-                          '"adaptive" (per-track settings and a head score, adaptive_* columns) or "skeleton" (the '
-                          'centre line of long tracks with scikit-image, skeleton_* columns; slow); '
+    "emission_estimator": 'the emission-angle estimate the table offers to the analysis: "adaptive" (per-track '
+                          'settings and a head score, adaptive_* columns), "two-stage" (the classic published '
+                          'moment analysis, columns emission_rad, conv_x_mm, conv_y_mm, always written) or '
+                          '"skeleton" (the centre line of long tracks with scikit-image, skeleton_* columns; slow); '
                           "docs/methods.md section 11",
 }
 
@@ -88,16 +94,18 @@ class ReconConfig:
         Main clusters with fewer pixels get the ``TOO_FEW_PIXELS`` status bit (values are still computed).
         Default 6 (common practice: below that the moments of a hexagonal cluster reflect the pixel shape).
     start_search_inner_rms, start_search_outer_rms : float
-        Inner and outer radius of the start-point search, in units of the track's rms length: the conversion
-        point is found among start-side pixels at distances between ``start_search_inner_rms`` and
-        ``start_search_outer_rms`` times sqrt(m2_major_mm2) from the centroid. Defaults 1.5 and 3.5 (from
-        memory of the published method; tune them with the simulator, maximising the quality factor
-        mu * sqrt(efficiency)).
+        Settings of the two-stage estimate (the adaptive estimate chooses its own for each track from its size,
+        ``docs/methods.md`` §11). Inner and outer radius of the start-point search, in units of the track's rms
+        length: the conversion point is found among start-side pixels at distances between
+        ``start_search_inner_rms`` and ``start_search_outer_rms`` times sqrt(m2_major_mm2) from the centroid.
+        Defaults 1.5 and 3.5 (from memory of the published method; tune them with the simulator, maximising the
+        quality factor mu * sqrt(efficiency)).
     second_pass_length_mm : float
-        Second-pass weights exp(-distance / second_pass_length_mm) from the conversion point. Default 0.05 mm (from
-        memory of the published method; about one pixel pitch).
+        Two-stage estimate: second-pass weights exp(-distance / second_pass_length_mm) from the conversion point.
+        Default 0.05 mm (from memory of the published method; about one pixel pitch).
     second_pass_centre : {"conversion_point", "weighted_centroid"}
-        Point about which the weighted second moments are taken. Default ``"conversion_point"``.
+        Two-stage estimate: point about which the weighted second moments are taken. Default
+        ``"conversion_point"``.
     counts_per_kev : float or None
         Gain: ``energy_kev = pulse_height / counts_per_kev`` (ADC counts per keV, > 0). Default None: taken from
         the raw file's ``/run`` attribute ``nominal_counts_per_kev`` (the simulator writes its design's value,
@@ -126,7 +134,9 @@ class ReconConfig:
         ``adaptive_*`` columns (the two-stage analysis with settings scaled by each track's size and a head score
         that also weighs the charge density), ``"skeleton"`` adds those and the ``skeleton_*`` columns (the start
         and first direction of long tracks from their centre line, with scikit-image; about a thousand times
-        slower, for the argon design above ~15 keV). Default ``"two-stage"``.
+        slower, for the argon design above ~15 keV). Default ``"adaptive"``: the best quality factor measured
+        (``docs/methods.md`` §11: 4 % above the two-stage analysis at 5.9 and 8 keV in He/DME, 10 % at 20 keV in
+        Ar/DME, equal at 2.7-3.7 keV); ``"two-stage"`` is the classic analysis alone.
 
     Examples
     --------
@@ -148,7 +158,7 @@ class ReconConfig:
     bad_pixels: tuple = ()
     pixel_map: str = ""
     threshold_noise_rms: float = 0.0
-    emission_estimator: str = "two-stage"
+    emission_estimator: str = "adaptive"
 
     def __post_init__(self):
         def number(name, value, *, integer=False):
