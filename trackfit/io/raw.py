@@ -414,8 +414,14 @@ class RawEventReader:
             out[: min(b, m) - a] = ds[a:min(b, m)]
         return out
 
-    def read_batch(self, a: int, b: int, *, with_truth: bool = True) -> EventBatch:
-        """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs)."""
+    def read_batch(self, a: int, b: int, *, with_truth: bool = True, buffer=None) -> EventBatch:
+        """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs).
+
+        ``buffer``: a callable ``buffer(n_pixels)`` returning an int16 array of at least ``n_pixels`` values to read
+        the signal into (streaming callers reuse a few buffers instead of new memory for every batch); the batch's
+        signal is then a view of it, valid until the caller reuses the buffer. Batches with malformed events are
+        read into new memory.
+        """
         if not 0 <= a <= b <= self._n:
             raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
         roi = self._roi[a:b]
@@ -449,7 +455,18 @@ class RawEventReader:
             roi[bad] = 0
         if not bad.any():
             s0 = int(start[0])
-            signal = self._signal[s0:int(start[-1])]
+            n_pix = int(start[-1]) - s0
+            memory = buffer(n_pix) if buffer is not None and n_pix > 0 else None
+            if memory is not None:
+                if memory.dtype != np.int16 or memory.ndim != 1 or memory.size < n_pix:
+                    raise ValueError(f"'buffer' gave an array of {memory.dtype} {memory.shape}; expected int16 of at "
+                                     f"least {n_pix} values")
+                signal = memory[:n_pix]
+                space = self._signal.id.get_space()
+                space.select_hyperslab((s0,), (n_pix,))
+                self._signal.id.read(h5py.h5s.create_simple((n_pix,)), space, signal)
+            else:
+                signal = self._signal[s0:int(start[-1])]
             new_start = start - s0
         else:
             # gather only the good events' pixel ranges
@@ -524,6 +541,13 @@ class RawEventReader:
         if missing:
             raise KeyError(f"'{self.path}' has no truth columns {missing}; it has {self.truth_names}")
         return {name: self._file["truth"][name][start:stop] for name in names}
+
+    def truth_dataset(self, name: str) -> h5py.Dataset:
+        """The HDF5 dataset ``/truth/<name>`` itself (for copies made by HDF5 without reading it, e.g.
+        :meth:`trackfit.io.table.TableWriter.copy_column`); valid while the reader is open."""
+        if name not in self.truth_names:
+            raise KeyError(f"'{self.path}' has no truth column {name!r}; it has {self.truth_names}")
+        return self._file["truth"][name]
 
     def validate(self, batch_size: int = DEFAULT_BATCH_SIZE) -> list[tuple[int, str]]:
         """Scan the whole file; return every malformed event as (index, reason) (never raises for events)."""

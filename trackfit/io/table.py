@@ -418,7 +418,11 @@ class TableWriter(PartialFileWriter):
         self._descriptions = dict(descriptions or {})
         self._columns: list[str] | None = None
         self._dtypes: dict[str, np.dtype] = {}
+        self._datasets: dict[str, h5py.Dataset] = {}
+        self._copied: list[str] = []  # columns copied whole from another file (copy_column), after the appended ones
         self._n = 0
+        # datasets are created with the expected length and trimmed by close(): no resize per append
+        self._allocated = max(0, int(expected_rows or 0))
         f = self._open(path, overwrite=overwrite)
         try:
             f.create_group("events", track_order=True)
@@ -434,13 +438,14 @@ class TableWriter(PartialFileWriter):
 
     @property
     def columns(self) -> list[str]:
-        return list(self._columns or [])
+        return list(self._columns or []) + self._copied
 
     def _create(self, columns: dict[str, np.ndarray]) -> None:
         events = self._file["events"]
         for name, arr in columns.items():
-            ds = events.create_dataset(name, shape=(0,), maxshape=(None,), dtype=arr.dtype,
+            ds = events.create_dataset(name, shape=(self._allocated,), maxshape=(None,), dtype=arr.dtype,
                                        chunks=(self._chunk_rows,), **self._filters)
+            self._datasets[name] = ds
             unit, text = None, None
             if name in COLUMN_DOCS:
                 _, unit, text = COLUMN_DOCS[name]
@@ -451,7 +456,10 @@ class TableWriter(PartialFileWriter):
                 ds.attrs["description"] = text
         self._columns = list(columns)
         self._dtypes = {name: arr.dtype for name, arr in columns.items()}
-        events.attrs["column_order"] = np.array(self._columns, dtype=h5py.string_dtype())
+        self._write_column_order()
+
+    def _write_column_order(self) -> None:
+        self._file["events"].attrs["column_order"] = np.array(self.columns, dtype=h5py.string_dtype())
 
     def append(self, columns: Mapping) -> None:
         """Append rows given as a mapping of equal-length 1-D arrays (an :class:`EventTable` works).
@@ -468,7 +476,7 @@ class TableWriter(PartialFileWriter):
                              f"{ {n: len(a) for n, a in arrays.items()} })")
         if self._columns is None:
             self._create(arrays)
-        elif set(arrays) != set(self._columns):
+        elif set(arrays) != set(self._columns) or set(arrays) & set(self._copied):
             raise ValueError(f"columns {sorted(arrays)} differ from those of earlier appends {sorted(self._columns)}")
         n_new = lengths.pop() if lengths else 0
         if n_new == 0:
@@ -483,12 +491,46 @@ class TableWriter(PartialFileWriter):
                     raise ValueError(f"column '{name}': values do not fit the column dtype {dtype}")
                 values = cast
             ready[name] = values
+        end = self._n + n_new
+        if end > self._allocated:
+            self._allocated = max(end, 2 * self._allocated)
+            for ds in self._datasets.values():
+                ds.resize((self._allocated,))
+        memory = h5py.h5s.create_simple((n_new,))
+        for name, values in ready.items():  # the low-level write: a tenth of the cost of ds[a:b] = values
+            ds = self._datasets[name]
+            space = ds.id.get_space()
+            space.select_hyperslab((self._n,), (n_new,))
+            ds.id.write(memory, space, np.ascontiguousarray(values))
+        self._n = end
+
+    def copy_column(self, name: str, source: h5py.Dataset, *, description: tuple[str, str] | None = None) -> None:
+        """Copy a whole 1-D dataset of another HDF5 file in as column ``name``, placed after the appended columns.
+
+        HDF5 copies the stored data (``H5Ocopy``: chunks, filters and attributes as they are), without a pass
+        through memory; the reconstruction copies the simulation truth of a raw file this way. The dataset must end
+        up as long as the appended columns: :meth:`close` checks it.
+        """
+        if self.closed:
+            raise ValueError(f"table writer for '{self.path}' is closed")
+        if not isinstance(source, h5py.Dataset) or source.ndim != 1 or source.dtype.kind not in "biuf":
+            raise ValueError(f"column '{name}' must be copied from a 1-D numeric dataset (got {source!r})")
+        if name in self.columns:
+            raise ValueError(f"column '{name}' already exists in '{self.path}'")
         events = self._file["events"]
-        for name, values in ready.items():
-            ds = events[name]
-            ds.resize((self._n + n_new,))
-            ds[self._n:] = values
-        self._n += n_new
+        # both uncompressed and no chunk longer than the data: HDF5 copies the stored bytes
+        if not self._filters and not source._filters and (source.chunks or (0,))[0] <= source.shape[0]:
+            events.copy(source, name)
+        else:  # through memory, with this table's filter and chunks
+            target = events.create_dataset(name, shape=source.shape, maxshape=(None,), dtype=source.dtype,
+                                           chunks=(max(1, min(self._chunk_rows, source.shape[0])),), **self._filters)
+            step = 1 << 20
+            for a in range(0, source.shape[0], step):
+                target[a:a + step] = source[a:a + step]
+        if description is not None:
+            events[name].attrs["unit"], events[name].attrs["description"] = description
+        self._copied.append(name)
+        self._write_column_order()
 
     def set_provenance(self, **values) -> None:
         """Add or replace entries of ``/provenance`` (e.g. the input fingerprint, known only at the end)."""
@@ -497,6 +539,14 @@ class TableWriter(PartialFileWriter):
         _write_provenance(self._provenance, values)
 
     def _finish(self) -> None:
+        for ds in self._datasets.values():
+            if ds.shape[0] != self._n:
+                ds.resize((self._n,))
+        events = self._file["events"]
+        for name in self._copied:
+            if events[name].shape[0] != self._n:
+                raise ValueError(f"'{self.path}': copied column '{name}' has {events[name].shape[0]} rows, the table "
+                                 f"{self._n}")
         self._file["events"].attrs["n_rows"] = self._n
 
 
