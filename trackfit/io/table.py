@@ -389,6 +389,11 @@ class TableWriter(PartialFileWriter):
         (:func:`chunk_rows_for`), so a small table takes little more space than its data.
     chunk_rows : int, optional
         Chunk length of every column dataset (default: from ``expected_rows``).
+    exact_rows : bool
+        ``expected_rows`` is exactly the number of rows that will be appended (the events of an input file): an
+        uncompressed table then stores its columns contiguously, written straight to the file (no chunk index,
+        no chunk cache to flush at close), and appending more rows or closing with fewer raises ValueError.
+        Compressed tables are always chunked.
     descriptions : dict, optional
         ``name -> (unit, description)`` for columns not in :data:`COLUMN_DOCS`.
     overwrite : bool
@@ -404,8 +409,8 @@ class TableWriter(PartialFileWriter):
     format_version = FORMAT_VERSION
 
     def __init__(self, path, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
-                 expected_rows: int | None = None, chunk_rows: int | None = None, descriptions=None,
-                 overwrite: bool = False):
+                 expected_rows: int | None = None, chunk_rows: int | None = None, exact_rows: bool = False,
+                 descriptions=None, overwrite: bool = False):
         from .. import __version__
 
         if chunk_rows is None:
@@ -423,6 +428,10 @@ class TableWriter(PartialFileWriter):
         self._n = 0
         # datasets are created with the expected length and trimmed by close(): no resize per append
         self._allocated = max(0, int(expected_rows or 0))
+        if exact_rows and expected_rows is None:
+            raise ValueError("'exact_rows' needs 'expected_rows', the number of rows that will be appended")
+        # contiguous columns: HDF5 needs a non-empty fixed size and no filter
+        self._contiguous = bool(exact_rows) and self._allocated > 0 and not self._filters
         f = self._open(path, overwrite=overwrite)
         try:
             f.create_group("events", track_order=True)
@@ -442,9 +451,9 @@ class TableWriter(PartialFileWriter):
 
     def _create(self, columns: dict[str, np.ndarray]) -> None:
         events = self._file["events"]
+        layout = {} if self._contiguous else {"maxshape": (None,), "chunks": (self._chunk_rows,), **self._filters}
         for name, arr in columns.items():
-            ds = events.create_dataset(name, shape=(self._allocated,), maxshape=(None,), dtype=arr.dtype,
-                                       chunks=(self._chunk_rows,), **self._filters)
+            ds = events.create_dataset(name, shape=(self._allocated,), dtype=arr.dtype, **layout)
             self._datasets[name] = ds
             unit, text = None, None
             if name in COLUMN_DOCS:
@@ -492,6 +501,9 @@ class TableWriter(PartialFileWriter):
                 values = cast
             ready[name] = values
         end = self._n + n_new
+        if end > self._allocated and self._contiguous:
+            raise ValueError(f"'{self.path}': {end} rows appended, more than the {self._allocated} announced "
+                             "(expected_rows with exact_rows=True)")
         if end > self._allocated:
             self._allocated = max(end, 2 * self._allocated)
             for ds in self._datasets.values():
@@ -539,6 +551,9 @@ class TableWriter(PartialFileWriter):
         _write_provenance(self._provenance, values)
 
     def _finish(self) -> None:
+        if self._contiguous and self._n != self._allocated:
+            raise ValueError(f"'{self.path}': {self._n} rows appended, not the {self._allocated} announced "
+                             "(expected_rows with exact_rows=True)")
         for ds in self._datasets.values():
             if ds.shape[0] != self._n:
                 ds.resize((self._n,))

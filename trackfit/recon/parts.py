@@ -197,7 +197,8 @@ def _run_part(task: RangeTask, config: ReconConfig, options: dict, progress) -> 
                                      with_truth=bool(options.get("with_truth", True)), strict=strict)
         provenance.update(part_start_event=task.start, part_stop_event=task.stop,
                           input_mtime_ns=int(raw_path.stat().st_mtime_ns))
-        with TableWriter(out, provenance=provenance, overwrite=True, expected_rows=task.n_events) as writer:
+        with TableWriter(out, provenance=provenance, overwrite=True, expected_rows=task.n_events,
+                         exact_rows=True) as writer:
             fingerprint = stream_range(reader, task.start, task.stop, prepared, writer, batch_size=batch_size,
                                        threads=int(options.get("threads") or 1), update=progress)
             writer.set_provenance(range_fingerprint=fingerprint.hexdigest(),
@@ -375,7 +376,7 @@ def join_parts(job: FileJob) -> Path:
     n_malformed = 0
     created = []
     writer = TableWriter(job.out_path, provenance=provenance, compression=job.compression,
-                         overwrite=job.overwrite, expected_rows=job.n_events)
+                         overwrite=job.overwrite, expected_rows=job.n_events, exact_rows=True)
     try:
         for path in job.part_paths:
             with h5py.File(path, "r") as f:

@@ -323,7 +323,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
         try:
             writer = TableWriter(out_path, provenance=provenance, compression=compression, overwrite=overwrite,
-                                 expected_rows=len(reader))
+                                 expected_rows=len(reader), exact_rows=True)
         except BaseException:
             close_bar()
             raise
@@ -414,7 +414,7 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
     Parameters
     ----------
     truth : RawEventReader, optional
-        Copy its ``/truth`` datasets in whole (HDF5 copies, made by the writer thread after the first batch); only
+        Copy its ``/truth`` datasets in whole (HDF5 copies, made by the writer thread once every batch is read); only
         for the whole file (``start == 0``, ``stop == len(reader)``).
 
     Returns
@@ -430,7 +430,8 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
                          f"not {start}:{stop}")
     update = update or (lambda n: None)
     fingerprint = _Fingerprint()
-    copies = truth_columns(truth) if truth is not None else []
+    copies: list = []  # (name, dataset) of the truth columns still to copy, looked up once reading has ended
+    lookup = [truth] if truth is not None else []
 
     # signal buffers reused from batch to batch (as many as batches are in flight: read, waiting, in the kernel)
     free: queue.Queue = queue.Queue()
@@ -444,34 +445,60 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             buffer = np.empty(max(n_pixels, 1), np.int16)
         return buffer
 
-    def read(bounds):
+    bounds = batch_bounds(start, stop, batch_size)
+    # h5py serialises all its calls with one lock: the truth copies wait until every batch is read, so they never
+    # hold up a read the kernel waits for (the batches read ahead keep the kernel busy meanwhile)
+    read_done = threading.Event()
+    if not bounds:
+        read_done.set()
+
+    def read(item):
         taken = []
 
         def buffer(n_pixels):
             taken.append(take_buffer(n_pixels))
             return taken[-1]
 
-        batch = reader.read_batch(*bounds, with_truth=False, buffer=buffer)
+        batch = reader.read_batch(*item, with_truth=False, buffer=buffer)
         fingerprint.update(batch)
+        if item == bounds[-1]:
+            read_done.set()
         return batch, (taken[0] if taken else None)
 
     work: queue.Queue = queue.Queue(maxsize=2)
     failure: list[BaseException] = []
 
+    def copy_one():
+        try:
+            if lookup:
+                copies.extend(truth_columns(lookup.pop()))
+            elif copies:
+                writer.copy_column(*copies.pop(0))
+        except BaseException as err:  # noqa: BLE001 - re-raised in the caller
+            failure.append(err)
+
     def write_loop():
         while True:
-            item = work.get()
+            pending = bool(lookup or copies) and not failure
+            try:
+                if pending and read_done.is_set():
+                    item = work.get_nowait()  # rows first, a truth column when none wait
+                else:  # wake up now and then to see whether the reading has ended
+                    item = work.get(timeout=0.005 if pending else None)
+            except queue.Empty:
+                if pending and read_done.is_set():
+                    copy_one()
+                continue
             if item is None:
-                return
+                break
             if failure:
                 continue
             try:
                 writer.append(item)
-                while copies:  # after the first batch, when the read-ahead keeps the kernel busy
-                    name, dataset = copies.pop(0)
-                    writer.copy_column(name, dataset)
             except BaseException as err:  # noqa: BLE001 - re-raised in the caller
                 failure.append(err)
+        while (lookup or copies) and not failure:
+            copy_one()
 
     thread = threading.Thread(target=write_loop, name="trackfit-table-writer", daemon=True)
     thread.start()
@@ -488,7 +515,7 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             update(len(batch))
 
         ahead = 1 if pool is not None else 0
-        for batch, buffer in _prefetched(read, batch_bounds(start, stop, batch_size)):
+        for batch, buffer in _prefetched(read, bounds):
             if failure:
                 break
             in_kernel.append((batch, buffer, prepared.submit(batch, threads, pool)))
@@ -509,8 +536,6 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             pool.shutdown()
     if failure:
         raise failure[0]
-    for name, dataset in copies:  # an empty range: nothing was appended
-        writer.copy_column(name, dataset)
     if len(writer) - n_written != stop - start:  # pragma: no cover - guards the one-row-per-event promise
         raise RuntimeError(f"wrote {len(writer) - n_written} rows for events {start}:{stop} of '{reader.path}'")
     return fingerprint
