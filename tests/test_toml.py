@@ -22,6 +22,11 @@ def test_round_trip_through_tomllib(data):
     assert tomllib.loads(dumps(data)) == data
 
 
+def test_keys_with_a_trailing_newline_are_quoted():
+    """A bare-key pattern ending in ``$`` also matches before a final newline; tomllib then refuses the text."""
+    assert tomllib.loads(dumps({"0\n": False, "a": {"b\n": 1}})) == {"0\n": False, "a": {"b\n": 1}}
+
+
 def test_special_floats_and_header():
     text = dumps({"a": math.inf, "b": -math.inf, "c": math.nan, "skip": None}, header="line one\nline two")
     assert text.startswith("# line one\n# line two\n")

@@ -19,6 +19,7 @@ import numpy as np
 
 __all__ = ["dumps", "format_value", "parse", "read_file"]
 
+
 def parse(text: str, *, source: str = "TOML text", error: type[Exception] = ValueError) -> dict:
     """``tomllib.loads(text)``; invalid TOML raises ``error("<source>: not valid TOML (<reason>)")``."""
     import tomllib
@@ -48,12 +49,12 @@ def read_file(path, *, what: str = "settings file", error: type[Exception] = Val
     return parse(path.read_text(encoding="utf-8"), source=source, error=error), source
 
 
-_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 
 
 def _key(key) -> str:
     key = str(key)
-    return key if _BARE_KEY.match(key) else _string(key)
+    return key if _BARE_KEY.fullmatch(key) else _string(key)  # (``$`` would accept a key ending in a newline)
 
 
 def _string(value: str) -> str:
