@@ -18,6 +18,7 @@ from ..events import Event, EventBatch, find_bad_events
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+from .kinds import open_kind
 
 __all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION",
            "TRIGGER_MODES"]
@@ -34,14 +35,6 @@ EVENT_DATASETS = {
     "trigger_id": (np.dtype(np.int64), ()),
 }
 GEOMETRY_ATTRIBUTES = ("pitch_mm", "n_columns", "n_rows", "shifted_rows")
-#: what to tell a user who gives another trackfit file where a raw event file is expected
-_OTHER_KINDS = {
-    "event-table": ": this is an event table, already reconstructed (summarise it with trackfit info, read it with "
-                   "trackfit.read_table)",
-    "calibration": ": this is a calibration file (made by trackfit calibrate), not a raw event file",
-    "pixel-map": ": this is a pixel map (made by trackfit pixel-map; give it to trackfit reconstruct --pixel-map), "
-                 "not a raw event file",
-}
 #: values of the optional ``/events`` attribute ``trigger_mode``: ``"self"`` (default when absent) - the chip
 #: triggered on its own signal (source or beam runs); ``"random"`` - random or periodic triggers without a source
 #: (pedestal runs: every pixel of every event is a noise sample)
@@ -272,14 +265,10 @@ class RawEventReader:
         self.strict = strict
         self.bad_events: list[tuple[int, str]] = []
         self._reported: set[int] = set()
-        if not self.path.exists():
-            raise FileNotFoundError(f"raw event file '{self.path}' does not exist")
+        self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file",
+                                      error=RawFormatError)
         try:
-            self._file = h5py.File(self.path, "r")
-        except OSError as err:
-            raise RawFormatError(self.path, f"not a readable HDF5 file ({err})") from None
-        try:
-            self._check_header()
+            self._check_header(attrs)
         except Exception:
             self._file.close()
             raise
@@ -288,16 +277,11 @@ class RawEventReader:
     def _error(self, message, dataset=None, event=None):
         return RawFormatError(self.path, message, dataset=dataset, event=event)
 
-    def _check_header(self):
+    def _check_header(self, attrs: dict):
         f = self._file
-        attrs = {k: _decode(v) for k, v in f.attrs.items()}
-        for key in ("trackfit_format", "format_version", "created_by", "created_utc"):
+        for key in ("format_version", "created_by", "created_utc"):
             if key not in attrs:
                 raise self._error(f"missing root attribute '{key}'", dataset="/")
-        if attrs["trackfit_format"] != FORMAT_NAME:
-            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
-            raise self._error(f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                              f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
         if attrs["format_version"] != FORMAT_VERSION:
             raise self._error(f"unknown format_version {attrs['format_version']!r}; this trackfit reads "
                               f"version {FORMAT_VERSION}", dataset="/")

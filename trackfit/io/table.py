@@ -24,6 +24,7 @@ import numpy as np
 from ._partial import PartialFileWriter
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 from .energy_label import describe_energy_scale, energy_is_calibrated, energy_scale_source
+from .kinds import open_kind
 
 __all__ = [
     "EventTable",
@@ -600,13 +601,6 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
 
 # ---------------------------------------------------------------------- reading
 #: what to tell a user who gives another trackfit file where an event table is expected
-_OTHER_KINDS = {
-    "raw-events": ": this is a raw event file; reconstruct it into an event table first: "
-                  "trackfit reconstruct RAW.h5 -o TABLE.h5 (trackfit.reconstruct_file in Python)",
-    "calibration": ": this is a calibration file (made by trackfit calibrate), not an event table",
-}
-
-
 def _read_provenance(group: h5py.Group) -> dict:
     out = {k: _decode(v) for k, v in group.attrs.items()}
     for key, item in group.items():
@@ -643,21 +637,10 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
         An unknown column name; the message lists the available columns.
     """
     path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"event table '{path}' does not exist")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as err:
-        raise TableFormatError(path, f"not a readable HDF5 file ({err})") from None
+    f, attrs = open_kind(path, FORMAT_NAME, what="event table", error=TableFormatError)
     with f:
-        attrs = {k: _decode(v) for k, v in f.attrs.items()}
-        for key in ("trackfit_format", "format_version"):
-            if key not in attrs:
-                raise TableFormatError(path, f"missing root attribute '{key}'", dataset="/")
-        if attrs["trackfit_format"] != FORMAT_NAME:
-            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
-            raise TableFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                                         f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
+        if "format_version" not in attrs:
+            raise TableFormatError(path, "missing root attribute 'format_version'", dataset="/")
         version = attrs["format_version"]
         if version not in READABLE_VERSIONS:
             raise TableFormatError(path, f"unknown format_version {version!r}; this trackfit reads versions "
