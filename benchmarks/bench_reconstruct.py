@@ -1,23 +1,33 @@
 """Reconstruction speed and memory, as ratios against baselines measured in the same run.
 
-Run:  python benchmarks/bench_reconstruct.py [--events 200000] [--no-memory] [--workdir DIR]
+Run:  python benchmarks/bench_reconstruct.py [--events 200000] [--sim-events 100000] [--sim-energies 3 6]
+                                             [--repeats 5] [--parts] [--no-memory] [--workdir DIR]
 
 Prints side by side, all with the two-stage analysis (``emission_estimator = "two-stage"``; ``bench_estimators.py``
 times the other estimates against it):
 
-1. kernel: events/s of the numba kernel on one core (and two threads) over ROIs of 28 x 27 = 756 pixels, against a
-   per-event numpy + ``scipy.ndimage`` implementation (``trackfit.recon._reference``: vectorised within each event,
-   what a user would write by hand). Targets: >= 250k events/s per core and >= 35x the per-event implementation.
-2. pipeline: ``reconstruct_file`` on the file against (a) the bare I/O it cannot avoid - an h5py read of the raw
-   arrays plus the write of the output columns - and (b) the kernel alone on the same events held in memory.
-   Target: the pipeline takes at most 1.25x the slower of (a) and (b).
+1. kernel: events/s of the numba kernel on one core (and all threads) over toy ROIs of 28 x 27 = 756 pixels,
+   against a per-event numpy + ``scipy.ndimage`` implementation (``trackfit.recon._reference``: vectorised within
+   each event, what a user would write by hand). Targets: >= 250k events/s per core and >= 35x the per-event
+   implementation.
+2. whole files, for the toy file and simulator files (``trackfit simulate --preset hedme-1atm-1cm --energy-kev E``,
+   uncompressed, about 300 ROI pixels per event):
+   a. the breakdown of the work around the kernel, each stage alone on one core: read (h5py + validation of the
+      events), checksum (the CRC-32 content fingerprint), kernel, columns (assembly of the result columns), write
+      (the table's columns, with its creation and closing) and truth copy (the simulation truth, copied by HDF5),
+      in ms per 1e5 events and as a share of the kernel;
+   b. ``reconstruct_file`` against the kernel alone on the same events held in memory, with 1 and all kernel
+      threads, runs interleaved, best of ``--repeats``. Targets: >= 0.9x the kernel's events/s with 1 thread,
+      >= 0.8x with all threads.
+   With ``--parts``: the same file split into event ranges over a spawn process pool (``reconstruct_in_parts``),
+   which pays about 1.5 s to start each worker process.
 3. memory: peak resident memory of ``reconstruct_file`` in a fresh process for files of 1e5 and 1e6 events (the
    larger file repeats the events of the smaller one ten times). Target: independent of the file size.
 
-The events are toy tracks (``trackfit.recon._synthetic``: a 0.6 mm segment with charge rising towards its end,
-diffused by 60 um, about 60 pixels above the default threshold of 10 ADC counts) with Gaussian pixel noise of 2 ADC
-counts (50 electrons at 25 electrons per count, the simulator's readout defaults). The machine may be shared with
-other work: run twice and compare, and read the ratios rather than the absolute numbers.
+The toy tracks (``trackfit.recon._synthetic``: a 0.6 mm segment with charge rising towards its end, diffused by
+60 um, about 60 pixels above the default threshold of 10 ADC counts, Gaussian pixel noise of 2 ADC counts) exercise
+large ROIs; the simulator files are the realistic input. The machine may be shared with other work: run it several
+times, compare, and read the ratios rather than the absolute numbers.
 """
 
 from __future__ import annotations
@@ -31,14 +41,14 @@ import tempfile
 import time
 from pathlib import Path
 
-import h5py
 import numpy as np
 
 from trackfit import EventBatch, RawEventWriter, ReconConfig, open_raw, reconstruct_file
+from trackfit.io.fingerprint import RawFingerprint
 from trackfit.io.table import TableWriter
 from trackfit.recon._reference import reconstruct_batch_reference
 from trackfit.recon._synthetic import toy_tracks
-from trackfit.recon.pipeline import DEFAULT_BATCH_SIZE, _columns, _Prepared
+from trackfit.recon.pipeline import DEFAULT_BATCH_SIZE, _columns, _Prepared, batch_bounds, truth_columns
 
 ROI_SHAPE = (28, 27)
 TRACK = dict(length_mm=0.6, diffusion_mm=0.06, adc_per_electron=6.0, noise_adc=2.0, roi_shape=ROI_SHAPE)
@@ -79,26 +89,134 @@ def bench_kernel(batch, config, repeats=5):
     return one, two, reference
 
 
-def bare_io(raw_path, table_columns, out_path, batch_size):
-    """Seconds to read the raw arrays with h5py, and to write the output columns, in batches."""
-    t = time.perf_counter()
-    with h5py.File(raw_path, "r") as f:
-        ev = f["events"]
-        n = ev["roi"].shape[0]
-        for a in range(0, n, batch_size):
-            b = min(a + batch_size, n)
-            start = ev["start"][a:b + 1]
-            ev["roi"][a:b]
-            ev["time_s"][a:b]
-            ev["trigger_id"][a:b]
-            ev["signal"][int(start[0]):int(start[-1])]
-    read = time.perf_counter() - t
-    t = time.perf_counter()
-    with TableWriter(out_path, overwrite=True, chunk_rows=min(batch_size, 65_536)) as writer:
-        for a in range(0, n, batch_size):
-            writer.append({k: v[a:a + batch_size] for k, v in table_columns.items()})
-    write = time.perf_counter() - t
-    return read, write
+def make_simulator_file(path, n, energy_kev, seed=7):
+    """``trackfit simulate --preset hedme-1atm-1cm --energy-kev E -n N`` (uncompressed), unless it exists."""
+    if Path(path).exists():
+        return Path(path)
+    from trackfit.simulate import load_preset, run
+
+    design = "hedme-1atm-1cm"
+    config = load_preset(design).with_monochromatic(energy_kev=energy_kev)
+    return run(config, n, rng=seed, design=design).write(path)
+
+
+def breakdown(raw, config, batch_size, repeats=3):
+    """Seconds of each stage around the kernel, alone on one core (best of ``repeats``)."""
+    def best(fn):
+        times, value = [], None
+        for _ in range(repeats):
+            t = time.perf_counter()
+            value = fn()
+            times.append(time.perf_counter() - t)
+        return min(times), value
+
+    out = {}
+    with open_raw(raw) as reader:
+        n = len(reader)
+        bounds = batch_bounds(0, n, batch_size)
+        prepared = _Prepared(config, reader.grid, config.energy_scale(reader.run_info)[0])
+        starts = reader._start[[a for a, _ in bounds] + [n]] if n else np.zeros(1, np.int64)
+        buffer = np.empty(int(np.diff(starts).max(initial=1)), np.int16)  # reused, as reconstruct_file does
+
+        def read():
+            return [reader.read_batch(a, b, with_truth=False, buffer=lambda k: buffer) for a, b in bounds]
+
+        out["read"], batches = best(read)
+        batches = [reader.read_batch(a, b, with_truth=False) for a, b in bounds]  # own memory, kept
+
+        def checksum():
+            fingerprint = RawFingerprint()
+            for batch in batches:
+                fingerprint.update(batch)
+
+        out["checksum"], _ = best(checksum)
+        prepared.run(batches[0])  # compiled or loaded from the cache outside the timing
+        out["kernel"], results = best(lambda: [prepared.run(batch) for batch in batches])
+        out["columns"], columns = best(lambda: [_columns(batch, *r) for batch, r in zip(batches, results,
+                                                                                       strict=True)])
+        copies = truth_columns(reader)
+
+        def write(copy):
+            with TableWriter(raw.parent / "bench_breakdown.h5", overwrite=True, expected_rows=n,
+                             exact_rows=True) as writer:
+                for c in columns:
+                    writer.append(c)
+                if copy:
+                    for name, dataset in copies:
+                        writer.copy_column(name, dataset)
+
+        out["write"], _ = best(lambda: write(False))
+        with_truth, _ = best(lambda: write(True))
+        out["truth copy"] = max(with_truth - out["write"], 0.0) if copies else 0.0
+    (raw.parent / "bench_breakdown.h5").unlink(missing_ok=True)
+    return n, out, len(copies)
+
+
+def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
+    """Best seconds of the kernel alone and of reconstruct_file (1 and all threads), interleaved."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    with open_raw(raw) as reader:
+        batch = reader.read_all(with_truth=False)
+        prepared = _Prepared(config, reader.grid, config.energy_scale(reader.run_info)[0])
+    prepared.run(batch.select(np.arange(min(100, len(batch)))))
+    pool = ThreadPoolExecutor(threads_all)
+    out = raw.parent / "bench_out.h5"
+    best, cpu = {}, {}
+
+    def timed(key, fn):
+        # the previous output is deleted outside the timing: replacing a file of tens of MB frees its pages in the
+        # kernel, which costs up to 20 ms and is not part of the reconstruction
+        out.unlink(missing_ok=True)
+        c, t = time.process_time(), time.perf_counter()
+        fn()
+        wall = time.perf_counter() - t
+        if wall < best.get(key, np.inf):
+            best[key], cpu[key] = wall, time.process_time() - c
+
+    for _ in range(repeats):
+        timed("kernel 1", lambda: prepared.run(batch))
+        timed("kernel all", lambda: prepared.run(batch, threads_all, pool))
+        timed("file 1", lambda: reconstruct_file(raw, out, config, batch_size=batch_size, progress=False,
+                                                  overwrite=True, threads=1))
+        timed("file all", lambda: reconstruct_file(raw, out, config, batch_size=batch_size, progress=False,
+                                                    overwrite=True, threads=threads_all))
+    if parts:
+        from trackfit.recon.parts import reconstruct_in_parts
+
+        for _ in range(2):
+            timed("parts", lambda: reconstruct_in_parts(raw, out, config, workers=threads_all,
+                                                        batch_size=batch_size, overwrite=True))
+    pool.shutdown()
+    out.unlink(missing_ok=True)
+    return len(batch), best, cpu
+
+
+def report_file(label, raw, config, args, threads_all):
+    n, stages, n_truth = breakdown(raw, config, args.batch_size)
+    kernel = stages["kernel"]
+    with open_raw(raw) as reader:
+        pixels = reader.n_pixels_total / max(len(reader), 1)
+    print(f"\n2. {label}: {n} events, {pixels:.0f} ROI pixels per event, {raw.stat().st_size / 1e6:.0f} MB"
+          + (f", {n_truth} truth columns" if n_truth else ""))
+    print("   a. each stage alone on one core     ms per 1e5 events   share of the kernel")
+    for key in ("read", "checksum", "kernel", "columns", "write", "truth copy"):
+        print(f"      {key:<33}{stages[key] / n * 1e8:>10.1f}{stages[key] / kernel:>18.1%}")
+    around = sum(v for k, v in stages.items() if k != "kernel")
+    print(f"      {'all but the kernel':<33}{around / n * 1e8:>10.1f}{around / kernel:>18.1%}")
+    n, best, cpu = whole_file(raw, config, args.batch_size, args.repeats, threads_all, parts=args.parts)
+    print(f"   b. events/s (best of {args.repeats} interleaved runs)   1 thread      {threads_all} threads")
+    print(f"      kernel alone, events in memory   {n / best['kernel 1']:>12,.0f}  {n / best['kernel all']:>12,.0f}")
+    print(f"      reconstruct_file                 {n / best['file 1']:>12,.0f}  {n / best['file all']:>12,.0f}")
+    one, every = best["kernel 1"] / best["file 1"], best["kernel all"] / best["file all"]
+    print(f"      ratio file / kernel              {one:>12.2f}  {every:>12.2f}   (targets >= 0.90 and >= 0.80: "
+          f"{'met' if one >= 0.9 else 'NOT met'}, {'met' if every >= 0.8 else 'NOT met'})")
+    print(f"      CPU seconds: file {cpu['file 1']:.3f} / {cpu['file all']:.3f} against kernel {cpu['kernel 1']:.3f} / "
+          f"{cpu['kernel all']:.3f}; load average now {os.getloadavg()[0]:.2f}")
+    if "parts" in best:
+        print(f"      reconstruct_in_parts, {threads_all} processes: {n / best['parts']:,.0f} events/s "
+              f"({best['kernel all'] / best['parts']:.2f}x the kernel; each process starts in about 1.5 s)")
+    return {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every}
 
 
 # VmHWM (peak resident set of this process image), not getrusage's ru_maxrss: Linux carries ru_maxrss over from
@@ -133,86 +251,66 @@ def peak_rss_mb(raw_path, out_path, batch_size):
 
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--events", type=int, default=200_000, help="events of the benchmark file (>= 200000)")
+    parser.add_argument("--events", type=int, default=200_000, help="events of the toy file (>= 200000)")
+    parser.add_argument("--sim-events", type=int, default=100_000, help="events of each simulator file")
+    parser.add_argument("--sim-energies", type=float, nargs="*", default=[3.0, 6.0],
+                        help="photon energies (keV) of the simulator files (none: toy file only)")
     parser.add_argument("--batch-size", type=int, default=DEFAULT_BATCH_SIZE)
-    parser.add_argument("--repeats", type=int, default=5, help="interleaved repetitions of the pipeline timings")
+    parser.add_argument("--repeats", type=int, default=5, help="interleaved repetitions of the whole-file timings")
+    parser.add_argument("--parts", action="store_true", help="also time reconstruct_in_parts (process pool)")
     parser.add_argument("--no-memory", action="store_true", help="skip the 1e5 / 1e6 event memory check")
-    parser.add_argument("--workdir", default=None, help="folder for the temporary files (default: a temp folder)")
+    parser.add_argument("--no-reference", action="store_true", help="skip the numpy + scipy kernel baseline")
+    parser.add_argument("--json", default=None, help="write the figures to this JSON file")
+    parser.add_argument("--workdir", default=None,
+                        help="folder for the files (default: a temporary folder; simulator files found there are "
+                        "reused)")
     args = parser.parse_args(argv)
     # the two-stage analysis, which the numpy baseline implements; bench_estimators.py measures what the default
     # adaptive estimate and the skeleton estimate add to it
     config = ReconConfig(emission_estimator="two-stage")
+    threads_all = os.cpu_count() or 1
+    figures = {}
     with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
         tmp = Path(tmp)
+        keep = Path(args.workdir) if args.workdir else tmp
         t = time.perf_counter()
         raw = make_file(tmp / "bench.h5", args.events)
         print(f"made {args.events} toy events ({ROI_SHAPE[0]} x {ROI_SHAPE[1]} pixel ROIs) in "
               f"{time.perf_counter() - t:.1f} s; file {raw.stat().st_size / 1e6:.0f} MB; "
-              f"{os.cpu_count()} CPUs; load average {os.getloadavg()[0]:.2f}")
+              f"{threads_all} CPUs; load average {os.getloadavg()[0]:.2f}")
+        sims = {}
+        for energy in args.sim_energies:
+            t = time.perf_counter()
+            sims[energy] = make_simulator_file(keep / f"sim_hedme_{energy:g}kev_{args.sim_events}.h5",
+                                               args.sim_events, energy)
+            print(f"simulator file at {energy:g} keV ready in {time.perf_counter() - t:.1f} s")
+
+        # 1. kernel against the per-event numpy + scipy implementation
         with open_raw(raw) as reader:
             batch = reader.read_all(with_truth=False)
         n = len(batch)
         n_pix = int(batch.start[-1])
-
-        # 1. kernel
-        from concurrent.futures import ThreadPoolExecutor
-
-        pool = ThreadPoolExecutor(2)
-        prepared = _Prepared(config, batch.grid)
-        one, two, reference = bench_kernel(batch, config)
         out_f, out_i = _Prepared(config, batch.grid).run(batch)
         columns = _columns(batch, out_f, out_i)
         print(f"\nhit pixels per event {columns['n_pixels'].mean():.1f}, status == 0 for "
               f"{np.mean(columns['status'] == 0):.1%}")
-        print("\n1. kernel                         events/s     ns/ROI pixel   ratio")
-        print(f"   numpy + scipy.ndimage, 1 core  {n / reference:>11,.0f}   {reference / n_pix * 1e9:>10.1f}   1.0")
-        print(f"   numba kernel, 1 thread         {n / one:>11,.0f}   {one / n_pix * 1e9:>10.2f}   "
-              f"{reference / one:,.0f}x   (target >= 250,000/s and >= 35x)")
-        print(f"   numba kernel, 2 threads        {n / two:>11,.0f}   {two / n_pix * 1e9:>10.2f}   "
-              f"{reference / two:,.0f}x")
+        if not args.no_reference:
+            one, two, reference = bench_kernel(batch, config)
+            print("\n1. kernel                         events/s     ns/ROI pixel   ratio")
+            print(f"   numpy + scipy.ndimage, 1 core  {n / reference:>11,.0f}   {reference / n_pix * 1e9:>10.1f}   1.0")
+            print(f"   numba kernel, 1 thread         {n / one:>11,.0f}   {one / n_pix * 1e9:>10.2f}   "
+                  f"{reference / one:,.0f}x   (target >= 250,000/s and >= 35x)")
+            print(f"   numba kernel, 2 threads        {n / two:>11,.0f}   {two / n_pix * 1e9:>10.2f}   "
+                  f"{reference / two:,.0f}x")
+            figures["kernel"] = {"events_per_s_1": n / one, "events_per_s_2": n / two,
+                                 "reference_events_per_s": n / reference}
+        del batch, columns, out_f, out_i
 
-        # 2. pipeline: interleave the runs and keep the best of each, so a burst of load from other work on a
-        # shared machine hits the pipeline and its baselines alike
-        best = {}
-        cpu = {}  # CPU seconds (all threads) of the fastest run of each kind
-
-        def timed(key, fn):
-            c, t = time.process_time(), time.perf_counter()
-            fn()
-            wall, used = time.perf_counter() - t, time.process_time() - c
-            if wall < best.get(key, np.inf):
-                best[key], cpu[key] = wall, used
-
-        for _ in range(args.repeats):
-            for key, fn in (
-                ("kernel1", lambda: prepared.run(batch)),
-                ("kernel2", lambda: prepared.run(batch, 2, pool)),
-                ("pipeline1", lambda: reconstruct_file(raw, tmp / "out.h5", config, batch_size=args.batch_size,
-                                                       progress=False, overwrite=True, threads=1)),
-                ("pipeline2", lambda: reconstruct_file(raw, tmp / "out.h5", config, batch_size=args.batch_size,
-                                                       progress=False, overwrite=True, threads=2)),
-            ):
-                timed(key, fn)
-            c = time.process_time()
-            read, write = bare_io(raw, columns, tmp / "bare_out.h5", args.batch_size)
-            if read + write < best.get("bare", np.inf):
-                best["bare"], best["read"], best["write"] = read + write, read, write
-                cpu["bare"] = time.process_time() - c
-        bare = best["bare"]
-        print("\n2. pipeline (seconds, best of interleaved runs)")
-        print(f"   (a) bare h5py read of the raw arrays {best['read']:.2f} + write of the columns "
-              f"{best['write']:.2f} = {bare:.2f}")
-        print(f"   (b) kernel alone: 1 thread {best['kernel1']:.2f}, 2 threads {best['kernel2']:.2f}")
-        for threads in (1, 2):
-            kernel, total = best[f"kernel{threads}"], best[f"pipeline{threads}"]
-            print(f"   reconstruct_file, {threads} kernel thread(s): {total:.2f} s = "
-                  f"{total / max(bare, kernel):.2f}x max(a, b = {kernel:.2f})   (target <= 1.25x); "
-                  f"{n / total:,.0f} events/s")
-        print(f"   CPU seconds (all threads): pipeline {cpu['pipeline1']:.2f} vs kernel {cpu['kernel1']:.2f} + bare "
-              f"I/O {cpu['bare']:.2f} = {cpu['kernel1'] + cpu['bare']:.2f}: the overlap needs a second free core, "
-              "so on a busy machine the wall-time ratio drifts towards the CPU ratio "
-              f"{cpu['pipeline1'] / cpu['kernel1']:.2f}")
-        print(f"   load average now {os.getloadavg()[0]:.2f}")
+        # 2. whole files
+        figures["toy"] = report_file("toy file", raw, config, args, threads_all)
+        for energy, path in sims.items():
+            figures[f"sim_{energy:g}kev"] = report_file(f"simulator file, {energy:g} keV", path, config, args,
+                                                        threads_all)
 
         # 3. memory
         if not args.no_memory:
@@ -229,8 +327,11 @@ def main(argv=None):
                       f"ratio {peak_large / peak_small:.2f}; 1e6 run sampled after each batch: largest RSS "
                       f"{large_rss['first_1e5_mb']:.0f} MB over the first 1e5 events, "
                       f"{large_rss['after_1e5_mb']:.0f} MB over the other 9e5")
+                figures[f"memory_{batch_size}"] = {"small_mb": peak_small, "large_mb": peak_large}
             print("   (with the default batch size a 1e5-event file is only 4 batches and never fills the read-ahead "
                   "of the pipeline; at 8192 both files reach the steady state)")
+    if args.json:
+        Path(args.json).write_text(json.dumps(figures, indent=1, default=float) + "\n")
 
 
 if __name__ == "__main__":

@@ -141,7 +141,8 @@ def test_file_round_trip_and_what_a_reader_refuses(small_response, tmp_path):
         DetectorResponse.load(broken)
     with h5py.File(broken, "a") as f:
         f.attrs["trackfit_format"] = "calibration"
-    with pytest.raises(ResponseFormatError, match="expected root attribute trackfit_format = 'response'"):
+    # another trackfit kind is named, with what to do with it
+    with pytest.raises(ResponseFormatError, match=r"must be 'response' \(got 'calibration'\): this is a calibration"):
         DetectorResponse.load(broken)
 
 

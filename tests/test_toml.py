@@ -22,6 +22,11 @@ def test_round_trip_through_tomllib(data):
     assert tomllib.loads(dumps(data)) == data
 
 
+def test_keys_with_a_trailing_newline_are_quoted():
+    """A bare-key pattern ending in ``$`` also matches before a final newline; tomllib then refuses the text."""
+    assert tomllib.loads(dumps({"0\n": False, "a": {"b\n": 1}})) == {"0\n": False, "a": {"b\n": 1}}
+
+
 def test_special_floats_and_header():
     text = dumps({"a": math.inf, "b": -math.inf, "c": math.nan, "skip": None}, header="line one\nline two")
     assert text.startswith("# line one\n# line two\n")
@@ -32,3 +37,21 @@ def test_special_floats_and_header():
 def test_unsupported_values_are_named():
     with pytest.raises(TypeError, match="cannot write a complex"):
         format_value(1j)
+
+
+def test_readers_name_the_file_and_the_problem(tmp_path):
+    import pytest
+
+    from trackfit._toml import parse, read_file
+
+    bad = tmp_path / "bad.toml"
+    bad.write_text("a = = 1\n")
+    with pytest.raises(ValueError, match=r"settings file '.*bad.toml': not valid TOML"):
+        read_file(bad)
+    with pytest.raises(FileNotFoundError, match="observation file '.*missing.toml' does not exist"):
+        read_file(tmp_path / "missing.toml", what="observation file")
+    with pytest.raises(KeyError):
+        parse("x = [", source="inline", error=KeyError)
+    good = tmp_path / "good.toml"
+    good.write_text("[recon]\nthreshold_adc = 7\n")
+    assert read_file(good) == ({"recon": {"threshold_adc": 7}}, f"settings file '{good}'")

@@ -1,4 +1,7 @@
-"""A small TOML writer for trackfit's settings files; reading uses the standard library's :mod:`tomllib`.
+"""A small TOML writer for trackfit's settings files, and the two readers every settings file goes through.
+
+Reading uses the standard library's :mod:`tomllib`: :func:`parse` and :func:`read_file` turn its errors (and a missing
+file) into one-line errors that name the file, so no settings reader words them on its own.
 
 The standard library has no TOML writer and the settings only need strings, booleans, integers, floats, (nested)
 lists of those, and tables nested to any depth, so this module writes exactly that, such that
@@ -14,14 +17,44 @@ from collections.abc import Mapping
 
 import numpy as np
 
-__all__ = ["dumps", "format_value"]
+__all__ = ["dumps", "format_value", "parse", "read_file"]
 
-_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+
+def parse(text: str, *, source: str = "TOML text", error: type[Exception] = ValueError) -> dict:
+    """``tomllib.loads(text)``; invalid TOML raises ``error("<source>: not valid TOML (<reason>)")``."""
+    import tomllib
+
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise error(f"{source}: not valid TOML ({err})") from None
+
+
+def read_file(path, *, what: str = "settings file", error: type[Exception] = ValueError) -> tuple[dict, str]:
+    """The content of a TOML file and the source label ``"<what> '<path>'"`` its readers put in front of errors.
+
+    Raises
+    ------
+    FileNotFoundError
+        ``"<what> '<path>' does not exist"``.
+    error
+        Invalid TOML, naming the file.
+    """
+    from pathlib import Path
+
+    path = Path(path)
+    source = f"{what} '{path}'"
+    if not path.exists():
+        raise FileNotFoundError(f"{source} does not exist")
+    return parse(path.read_text(encoding="utf-8"), source=source, error=error), source
+
+
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 
 
 def _key(key) -> str:
     key = str(key)
-    return key if _BARE_KEY.match(key) else _string(key)
+    return key if _BARE_KEY.fullmatch(key) else _string(key)  # (``$`` would accept a key ending in a newline)
 
 
 def _string(value: str) -> str:

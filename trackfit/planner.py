@@ -40,7 +40,6 @@ import dataclasses
 import html
 import json
 import math
-import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -274,13 +273,7 @@ class Observation:
 
     @staticmethod
     def _toml_values(path) -> dict:
-        path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"observation file '{path}' does not exist")
-        try:
-            return tomllib.loads(path.read_text())
-        except tomllib.TOMLDecodeError as err:
-            raise ValueError(f"observation file '{path}': not valid TOML ({err})") from None
+        return _toml.read_file(path, what="observation file")[0]
 
     @classmethod
     def read_toml(cls, path) -> Observation:

@@ -34,6 +34,7 @@ import h5py
 import numpy as np
 
 from .io._partial import PartialFileWriter
+from .io.kinds import open_kind
 from .io.raw import EVENT_DATASETS
 from .recon import ReconConfig
 from .simulate import SimConfig
@@ -302,18 +303,9 @@ class DetectorResponse:
             entry).
         """
         path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"response file '{path}' does not exist")
-        try:
-            f = h5py.File(path, "r")
-        except OSError as err:
-            raise ResponseFormatError(path, f"not a readable HDF5 file ({err})") from None
+        f, attrs = open_kind(path, RESPONSE_FORMAT, what="response file",
+                             error=ResponseFormatError)
         with f:
-            attrs = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in f.attrs.items()}
-            kind = attrs.get("trackfit_format")
-            if kind != RESPONSE_FORMAT:
-                raise ResponseFormatError(path, f"expected root attribute trackfit_format = '{RESPONSE_FORMAT}', "
-                                                f"found {kind!r}", dataset="/")
             if attrs.get("format_version") != RESPONSE_FORMAT_VERSION:
                 raise ResponseFormatError(path, f"format_version {attrs.get('format_version')!r} is not one this "
                                                 f"version reads (expected {RESPONSE_FORMAT_VERSION})", dataset="/")

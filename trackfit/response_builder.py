@@ -26,7 +26,6 @@ import hashlib
 import json
 import math
 import os
-import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -125,14 +124,8 @@ class ResponseSettings:
 
     @classmethod
     def read_toml(cls, path) -> ResponseSettings:
-        path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"response settings file '{path}' does not exist")
-        try:
-            values = tomllib.loads(path.read_text())
-        except tomllib.TOMLDecodeError as err:
-            raise ValueError(f"response settings file '{path}': not valid TOML ({err})") from None
-        return cls.from_dict(values, source=f"response settings file '{path}'")
+        values, source = _toml.read_file(path, what="response settings file")
+        return cls.from_dict(values, source=source)
 
 
 # ---------------------------------------------------------------------------------------------- energy grid

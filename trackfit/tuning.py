@@ -28,7 +28,6 @@ from __future__ import annotations
 import itertools
 import math
 import time
-import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -397,16 +396,11 @@ def read_settings(path):
 
     A file with only reconstruction keys gives the default selection (an emission angle and no failure bit).
     """
+    from ._toml import read_file
     from .analysis import selection_from_dict
     from .recon import ReconConfig
 
-    path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"settings file '{path}' does not exist")
-    try:
-        values = tomllib.loads(path.read_text())
-    except tomllib.TOMLDecodeError as err:
-        raise ValueError(f"settings file '{path}': not valid TOML ({err})") from None
+    values, _ = read_file(path, what="settings file")
     unknown = sorted(set(values) - {"recon", "selection"})
     if unknown:
         raise ValueError(f"settings file '{path}': unknown table(s) {unknown}; expected [recon] and [selection]")

@@ -215,3 +215,28 @@ def test_calibrate_warns_on_a_poor_line_fit(tmp_path, capsys):
     captured = capsys.readouterr()
     assert "trackfit calibrate: warning: poor fit of the flat-field line at 8 keV" in captured.err
     assert "POOR" in captured.out
+
+
+def test_polarization_of_several_tables(runs, tmp_path, capsys):
+    # two tables on the command line give the answer of their concatenation (the Stokes sums add over events,
+    # Kislat et al. 2015); the concatenation is made here with numpy, outside the command
+    from trackfit import read_table
+
+    both = {k: np.concatenate([read_table(runs["science"])[k], read_table(runs["pol6"])[k]])
+            for k in read_table(runs["science"]).columns}
+    joined = write_table(tmp_path / "joined.h5", both)
+    out_two, out_one = tmp_path / "two.json", tmp_path / "one.json"
+    common = ["--modulation-factor", "0.4", "--bands", "3", "5.5", "8", "--energy-kev", "2", "9"]
+    assert main(["polarization", str(runs["science"]), str(runs["pol6"]), *common, "--json", str(out_two)]) == 0
+    assert "runs: " in capsys.readouterr().out
+    assert main(["polarization", str(joined), *common, "--json", str(out_one)]) == 0
+    two, one = json.loads(out_two.read_text()), json.loads(out_one.read_text())
+    for key in ("q", "u", "q_err", "u_err", "degree", "mdp99"):
+        assert two["stokes"][key] == pytest.approx(one["stokes"][key], rel=1e-9)
+    assert two["stokes"]["n_events"] == one["stokes"]["n_events"]
+    assert two["cut_flow"] == one["cut_flow"]
+    assert [t["label"] for t in two["inputs"]["tables"]] == [str(runs["science"]), str(runs["pol6"])]
+    assert two["settings"]["n_tables"] == 2
+    assert main(["polarization", str(runs["science"]), str(tmp_path / "none.h5"), "--modulation-factor",
+                 "0.4"]) == 2
+    assert "none.h5' does not exist" in capsys.readouterr().err

@@ -221,3 +221,31 @@ def test_chunks_are_sized_from_the_row_count(tmp_path):
         writer.append(cols)
     with h5py.File(tmp_path / "unknown.h5") as f:
         assert f["events/status"].chunks == (chunk_rows_for(None),)
+
+
+def test_exact_row_count_stores_columns_contiguously(tmp_path):
+    """Told the exact row count, an uncompressed writer stores each column as one contiguous block (h5py reports
+    ``chunks is None`` for the contiguous layout); a wrong count is refused and leaves no file."""
+    cols = _columns(3000, seed=5)
+    path = tmp_path / "exact.h5"
+    with TableWriter(path, expected_rows=3000, exact_rows=True) as writer:
+        writer.append({k: v[:1000] for k, v in cols.items()})
+        writer.append({k: v[1000:] for k, v in cols.items()})
+    with h5py.File(path) as f:
+        assert {f["events"][name].chunks for name in cols} == {None}
+    back = read_table(path)
+    for name, values in cols.items():
+        np.testing.assert_array_equal(back[name], values)
+    with TableWriter(tmp_path / "lzf.h5", expected_rows=3000, exact_rows=True, compression="lzf") as writer:
+        writer.append(cols)
+    with h5py.File(tmp_path / "lzf.h5") as f:
+        assert f["events/status"].chunks is not None  # filters need chunks
+    with pytest.raises(ValueError, match="more than the 2999 announced"):
+        with TableWriter(tmp_path / "short.h5", expected_rows=2999, exact_rows=True) as writer:
+            writer.append(cols)
+    with pytest.raises(ValueError, match="not the 3001 announced"):
+        with TableWriter(tmp_path / "long.h5", expected_rows=3001, exact_rows=True) as writer:
+            writer.append(cols)
+    assert not list(tmp_path.glob("short.h5*")) and not list(tmp_path.glob("long.h5*"))
+    with pytest.raises(ValueError, match="'exact_rows' needs 'expected_rows'"):
+        TableWriter(tmp_path / "none.h5", exact_rows=True)

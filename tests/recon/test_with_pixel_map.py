@@ -185,3 +185,37 @@ def test_config_settings(tmp_path):
     assert ReconConfig.read_toml(path).pixel_map == str(tmp_path / "cfg" / "maps" / "chip.h5")
     absolute = dataclasses.replace(config, pixel_map=str(tmp_path / "x.h5"))
     assert ReconConfig.read_toml(absolute.write_toml(tmp_path / "a.toml")).pixel_map == str(tmp_path / "x.h5")
+
+
+@pytest.mark.parametrize("threshold_noise_rms", [0.0, 5.0])
+def test_event_display_sees_the_pixels_the_reconstruction_sees(map_path, threshold_noise_rms, tmp_path, capsys):
+    """``event_clusters`` (scipy.ndimage labels, one event at a time) with a pixel map and raw ADC input finds the main
+    cluster the compiled kernel finds (``n_pixels``), and ``trackfit show`` draws such a file only with the map."""
+    from trackfit.cli import main
+    from trackfit.recon.clusters import event_as_reconstructed, event_clusters
+
+    pixel_map = random_map()
+    batch = with_pedestals(toy_tracks(60, 8, noise_adc=2.0), pixel_map, np.random.default_rng(9))
+    config = ReconConfig(pixel_map=str(map_path), threshold_noise_rms=threshold_noise_rms)
+    table = reconstruct(batch, config)
+    for i in range(len(batch)):
+        clusters = event_clusters(batch.event(i), config, pedestal_subtracted=False)
+        assert int(clusters.in_main.sum()) == int(table["n_pixels"][i])
+    event, ignored, threshold = event_as_reconstructed(batch.event(0), config, pedestal_subtracted=False)
+    expected = np.rint(batch.event(0).signal - pixel_map.pedestal_adc[batch.event(0).rows, batch.event(0).columns])
+    np.testing.assert_array_equal(event.signal, expected)  # numpy's rint of signal - pedestal
+    np.testing.assert_array_equal(ignored, pixel_map.masked[batch.event(0).rows, batch.event(0).columns])
+    with pytest.raises(ValueError, match="holds raw ADC values"):
+        event_clusters(batch.event(0), ReconConfig(), pedestal_subtracted=False)
+
+    raw = tmp_path / "raw.h5"
+    with RawEventWriter(raw, GRID) as writer:
+        writer.append(batch)
+    assert main(["show", str(raw), "--event", "0", "-o", str(tmp_path / "a.png")]) == 2
+    assert "holds raw ADC values (pedestal_subtracted = false): give the pixel map" in capsys.readouterr().err
+    assert main(["show", str(raw), "--event", "0", "-o", str(tmp_path / "b.png"), "--pixel-map", str(map_path),
+                 "--no-overlay"]) == 0
+    assert "pedestals of the pixel map subtracted" in capsys.readouterr().out and (tmp_path / "b.png").exists()
+    assert main(["show", str(raw), "--event", "0", "-o", str(tmp_path / "c.png"), "--pixel-map",
+                 str(tmp_path / "none.h5")]) == 2
+    assert "--pixel-map: pixel map" in capsys.readouterr().err

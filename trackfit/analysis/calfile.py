@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ..io._partial import PartialFileWriter, now_utc
+from ..io.kinds import open_kind
 from .gainmap import GainMap
 from .gaintime import GainDrift
 from .modfactor import ModulationFactorCurve
@@ -215,22 +216,10 @@ class Calibration:
     @classmethod
     def load(cls, path) -> Calibration:
         """Read a calibration file; unknown groups are rejected with the list of known ones."""
-        import h5py
-
         path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"calibration file {path} does not exist")
-        try:
-            f = h5py.File(path, "r")
-        except OSError as err:
-            raise CalibrationFormatError(path, f"not an HDF5 file ({err})") from None
+        f, attrs = open_kind(path, CALIBRATION_FORMAT, what="calibration file", error=CalibrationFormatError)
         with f:
-            fmt = f.attrs.get("trackfit_format")
-            fmt = fmt.decode() if isinstance(fmt, bytes) else fmt
-            if fmt != CALIBRATION_FORMAT:
-                raise CalibrationFormatError(path, f"attribute 'trackfit_format' must be {CALIBRATION_FORMAT!r} "
-                                                   f"(got {fmt!r})")
-            version = int(f.attrs.get("format_version", -1))
+            version = int(attrs.get("format_version", -1))
             if version != CALIBRATION_FORMAT_VERSION:
                 raise CalibrationFormatError(path, f"format_version {version} is not supported (this trackfit "
                                                    f"reads version {CALIBRATION_FORMAT_VERSION})")

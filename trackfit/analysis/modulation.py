@@ -20,7 +20,7 @@ from scipy import optimize
 from ._fitting import fit_binned_poisson
 from .fitquality import FitQuality, fit_quality
 
-__all__ = ["ModulationFit", "modulation_curve"]
+__all__ = ["ModulationFit", "modulation_curve", "AngleHistogram", "angle_histogram", "fit_angle_histogram"]
 
 
 def _bin_integrals(edges):
@@ -125,6 +125,36 @@ def modulation_curve(angles_rad, *, n_bins: int = 36, weights=None) -> Modulatio
     ValueError
         If ``n_bins`` is not a positive multiple of 12, or fewer than 2 events are usable.
     """
+    histogram = angle_histogram(angles_rad, n_bins=n_bins, weights=weights)
+    if histogram.n_events < 2:
+        raise ValueError(f"a modulation curve needs at least 2 events with a finite angle (got "
+                         f"{histogram.n_events})")
+    return fit_angle_histogram(histogram)
+
+
+@dataclass(frozen=True)
+class AngleHistogram:
+    """Histogram of emission angles over [-pi, pi): counts (sums of weights) and variances (sums of squared
+    weights) per bin, and the events in it. Histograms of the same binning add (``+``), so a modulation curve of
+    many runs is fitted from the sum of their histograms (:func:`fit_angle_histogram`)."""
+
+    edges: np.ndarray
+    counts: np.ndarray
+    variances: np.ndarray
+    n_events: int
+    weighted: bool
+
+    def __add__(self, other: AngleHistogram) -> AngleHistogram:
+        if not isinstance(other, AngleHistogram):
+            return NotImplemented
+        if self.edges.shape != other.edges.shape or self.weighted != other.weighted:
+            raise ValueError("only histograms with the same bins and weighting add")
+        return AngleHistogram(self.edges, self.counts + other.counts, self.variances + other.variances,
+                              self.n_events + other.n_events, self.weighted)
+
+
+def angle_histogram(angles_rad, *, n_bins: int = 36, weights=None) -> AngleHistogram:
+    """The histogram :func:`modulation_curve` fits (NaN angles and weights dropped)."""
     if isinstance(n_bins, bool) or int(n_bins) != n_bins or n_bins < 12 or n_bins % 12:
         raise ValueError(f"'n_bins' must be a positive multiple of 12 (got {n_bins!r})")
     angles = np.asarray(angles_rad, dtype=float)
@@ -137,12 +167,18 @@ def modulation_curve(angles_rad, *, n_bins: int = 36, weights=None) -> Modulatio
         good &= np.isfinite(w)
         w = w[good]
     angles = angles[good]
-    if angles.size < 2:
-        raise ValueError(f"a modulation curve needs at least 2 events with a finite angle (got {angles.size})")
     wrapped = np.mod(angles + np.pi, 2 * np.pi) - np.pi  # [-pi, pi)
     edges = np.linspace(-np.pi, np.pi, int(n_bins) + 1)
     counts, _ = np.histogram(wrapped, bins=edges, weights=w)
     variances = counts.copy() if w is None else np.histogram(wrapped, bins=edges, weights=w**2)[0]
+    return AngleHistogram(edges, counts, variances, int(angles.size), w is not None)
+
+
+def fit_angle_histogram(histogram: AngleHistogram) -> ModulationFit:
+    """Fit ``A + B cos^2(phi - phi0)`` to a histogram (as :func:`modulation_curve` does)."""
+    edges, counts, variances = histogram.edges, histogram.counts, histogram.variances
+    n_bins = counts.size
+    w = True if histogram.weighted else None
     one, cos2, sin2 = _bin_integrals(edges)
     total = counts.sum()
 

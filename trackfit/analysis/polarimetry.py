@@ -9,24 +9,22 @@ from __future__ import annotations
 
 import html
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .calfile import ESTIMATE_PARTS, Calibration
-from .estimates import EstimateMismatchError, estimator_of, with_estimate
+from .estimates import EstimateMismatchError, estimator_of
 from .fitquality import warn_if_poor
-from .modulation import ModulationFit, modulation_curve
+from .modulation import ModulationFit, fit_angle_histogram
 from .selection import (
     Cut,
     CutFlow,
-    EnergyWindow,
     NoEventsLeftError,
-    select_rows,
     warn_if_selections_differ,
     with_default,
 )
-from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights, stokes_sums
+from .stokes import ONE_SIGMA_LEVEL, StokesBands, StokesResult, ellipticity_weights
 
 __all__ = ["PolarizationMeasurement", "measure_polarization", "event_weights", "WEIGHTINGS"]
 
@@ -205,53 +203,21 @@ class PolarizationMeasurement:
         return "".join(pieces) or html.escape(repr(self))
 
 
-def _prepared(table, calibration, selection, use_gain_drift):
-    columns = calibration.apply(table, use_gain_drift=use_gain_drift) if calibration is not None else dict(table)
-    flow = selection.cut_flow(columns)
-    mask = selection.mask(columns)
-    return select_rows(columns, mask), flow
-
-
-def _sums(events, calibration, modulation_factor, weighting):
-    mu, weights, spurious = _corrections(events, calibration, modulation_factor, weighting)
-    sums = stokes_sums(events["emission_rad"], modulation_factor=mu, weights=weights, **spurious)
-    if spurious:  # the subtracted map has statistical errors shared by all events of a cell
-        spurious_map = calibration.spurious_modulation
-        xc, yc = spurious_map.columns
-        w = np.ones(len(events["emission_rad"])) if weights is None else weights
-        phi = np.asarray(events["emission_rad"], dtype=float)
-        coefficients = np.where(np.isfinite(phi), 2.0 * w / np.asarray(mu, dtype=float), np.nan)
-        sums = sums.with_extra_variance(*spurious_map.sum_variance(events["energy_kev"], events[xc], events[yc],
-                                                                   coefficients))
-    return sums, mu, weights, spurious
-
-
-def _corrections(events, calibration, modulation_factor, weighting):
-    if modulation_factor is not None:
-        mu = modulation_factor
-    elif calibration is not None and calibration.modulation_factor is not None:
-        mu = events["modulation_factor"]
-    else:
-        raise ValueError("measuring polarization needs a modulation factor: a calibration with a "
-                         "modulation_factor curve, or modulation_factor=<value>")
-    spurious = {}
-    if calibration is not None and calibration.spurious_modulation is not None:
-        spurious = {"spurious_q": events["spurious_q"], "spurious_u": events["spurious_u"]}
-    return mu, event_weights(events, weighting), spurious
-
-
-def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibration: Calibration | None = None,
+def measure_polarization(table, *, selection: Cut | None = None, calibration: Calibration | None = None,
                          modulation_factor: float | None = None, weighting="none",
-                         background_selection: Cut | None = None, background_table: Mapping | None = None,
+                         background_selection: Cut | None = None, background_table=None,
                          background_scale: float | None = None, energy_bands_kev=None, n_bins: int = 36,
                          use_gain_drift: bool = False, confidence_level: float = ONE_SIGMA_LEVEL,
-                         estimator: str | None = None) -> PolarizationMeasurement:
+                         estimator: str | None = None, client=None) -> PolarizationMeasurement:
     """Select events, apply a calibration, and measure the polarization.
 
     Parameters
     ----------
-    table : mapping of column arrays
-        An event table (``emission_rad`` and whatever the selection and calibration need).
+    table : mapping of column arrays, path of a table file, or a sequence of them
+        An event table (``emission_rad`` and whatever the selection and calibration need), or several runs: they
+        are read one at a time (files in blocks of rows) and reduced to sums that add up
+        (:mod:`~trackfit.analysis.manyruns`), so the memory does not grow with their number; the result equals the
+        one-table answer on their concatenation. Every run gets the same calibration and selection.
     selection : Cut, optional
         Cuts on the source events, added to the default selection (:class:`~trackfit.analysis.UsableEvents`: an
         emission angle and no failure bit), which is the first step of the cut flow. With a calibration, a
@@ -269,8 +235,8 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         same weights: a calibration whose modulation factor or spurious map was made with other weights is refused.
     background_selection : Cut, optional
         Off-source events (added to the default selection), taken from ``background_table`` (default: the same
-        table), subtracted with ``background_scale`` = (area x time on) / (area x time off) (required with a
-        background).
+        table, or each of the tables), subtracted with ``background_scale`` = (area x time on) / (area x time off)
+        (required with a background). ``background_table`` may be several tables too.
     energy_bands_kev : array_like, optional
         Band edges for a per-band table (each band with its own background subtraction and map errors).
     n_bins : int
@@ -280,8 +246,11 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
     confidence_level : float
         Level of the Rice interval of the degree.
     estimator : {"two-stage", "adaptive", "skeleton"}, optional
-        The emission-angle estimate of the table to use (default: the one it was reconstructed with;
-        :func:`trackfit.analysis.estimates.estimator_of`). A calibration made with another estimate is refused.
+        The emission-angle estimate of the tables to use (default: the one the (first) table was reconstructed
+        with; :func:`trackfit.analysis.estimates.estimator_of`); every table must hold it. A calibration made with
+        another estimate is refused.
+    client : dask.distributed.Client, optional
+        Reduce each table as a Dask task (tables given as paths are read by the workers).
 
     Raises
     ------
@@ -290,14 +259,25 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
     EstimateMismatchError
         The calibration's modulation factor, spurious map or modulation response was made with another estimate
         or other weights (the message names both).
+    ValueError
+        Per-row weights (an array) with several tables (they belong to the rows of one table).
     """
+    from .manyruns import MeasurementSpec, as_table_list, sum_tables
+
     selection = with_default(selection)
-    chosen = estimator_of(table) if estimator is None else estimator
-    _check_estimate_against_calibration(chosen, weighting, calibration, modulation_factor)
-    table = with_estimate(table, chosen)
+    tables = as_table_list(table)
+    several = tables is not None
+    if not several:
+        tables = [table]
+    background_tables = None
     if background_table is not None:
-        background_table = with_estimate(background_table, chosen, name="the background table")
+        background_tables = as_table_list(background_table) or [background_table]
+    chosen = estimator_of(_with_provenance(tables[0])) if estimator is None else estimator
+    _check_estimate_against_calibration(chosen, weighting, calibration, modulation_factor)
     if not isinstance(weighting, str) and weighting is not None:  # per-row weights travel with the rows
+        if several:
+            raise ValueError("per-row weights (an array) belong to one table; with several tables use "
+                             "weighting='ellipticity' or 'none'")
         w = np.asarray(weighting, dtype=float)
         n_rows = len(table["emission_rad"])
         if w.shape != (n_rows,):
@@ -305,59 +285,58 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
         if background_table is not None:
             raise ValueError("per-row weights cannot be used with a separate background_table; use "
                              "weighting='ellipticity' or put the weights in both tables")
-        table = dict(table, user_weight=w)
+        tables = [dict(table, user_weight=w)]
         weighting = "user_weight"
-    events, flow = _prepared(table, calibration, selection, use_gain_drift)
-    if flow.n_kept == 0:
-        raise NoEventsLeftError("in the run", flow)
-    _check_against_calibration(selection, weighting, calibration, modulation_factor)
-    sums, mu, weights, spurious = _sums(events, calibration, modulation_factor, weighting)
-    background_flow = off_events = None
-    if background_selection is not None or background_table is not None:
-        if background_scale is None:
-            raise ValueError("a background needs background_scale = (area x time on) / (area x time off)")
-        off_table = background_table if background_table is not None else table
-        off_selection = with_default(background_selection)
-        warn_if_selections_differ(off_selection, selection, what="the background selection",
-                                  reference_name="the source selection",
-                                  reason="A background is subtracted correctly only when its events pass the same "
-                                  "status and track-shape cuts as the source events")
-        off_events, background_flow = _prepared(off_table, calibration, off_selection, use_gain_drift)
-        sums = sums.subtract(_sums(off_events, calibration, modulation_factor, weighting)[0], background_scale)
-    result = StokesResult.from_sums(sums, confidence_level=confidence_level)
-    bands = None
+    has_background = background_selection is not None or background_table is not None
+    if has_background and background_scale is None:
+        raise ValueError("a background needs background_scale = (area x time on) / (area x time off)")
+    edges = None
     if energy_bands_kev is not None:
         edges = np.asarray(energy_bands_kev, dtype=float)
         if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0):
             raise ValueError(f"'energy_bands_kev' must be increasing with at least 2 entries (got {edges.tolist()})")
+    if isinstance(n_bins, bool) or int(n_bins) != n_bins or n_bins < 12 or n_bins % 12:
+        raise ValueError(f"'n_bins' must be a positive multiple of 12 (got {n_bins!r})")
+    _check_against_calibration(selection, weighting, calibration, modulation_factor)
+    if has_background:
+        warn_if_selections_differ(with_default(background_selection), selection, what="the background selection",
+                                  reference_name="the source selection",
+                                  reason="A background is subtracted correctly only when its events pass the same "
+                                  "status and track-shape cuts as the source events")
+    spec = MeasurementSpec(selection=selection, calibration=calibration, modulation_factor=modulation_factor,
+                           weighting=weighting, background_selection=background_selection if has_background
+                           else None, energy_edges_kev=edges, n_bins=int(n_bins), use_gain_drift=use_gain_drift,
+                           estimator=chosen)
+    if has_background and background_selection is None and background_tables is not None:
+        spec = replace(spec, background_selection=with_default(None))
+    total = sum_tables(tables, spec, background_tables=background_tables, client=client)
+    flow = total.flow
+    if flow.n_kept == 0:
+        raise NoEventsLeftError("in the runs" if several else "in the run", flow)
+    sums = total.source.stokes_sums(calibration)
+    background_flow = None
+    if has_background:
+        background_flow = total.background_flow
+        sums = sums.subtract(total.background.stokes_sums(calibration), background_scale)
+    result = StokesResult.from_sums(sums, confidence_level=confidence_level)
+    bands = None
+    if edges is not None:
         results = []
-        for lo, hi in zip(edges[:-1], edges[1:], strict=True):
-            band = EnergyWindow(low_kev=float(lo), high_kev=float(hi))
-            band_events = select_rows(events, band.mask(events))
-            if len(band_events["emission_rad"]) == 0:
+        off_bands = total.background_bands or (None,) * len(total.bands)
+        for lo, hi, band, off_band in zip(edges[:-1], edges[1:], total.bands, off_bands, strict=True):
+            if band.n_rows == 0:
                 results.append(None)
                 continue
-            band_sums = _sums(band_events, calibration, modulation_factor, weighting)[0]
-            if off_events is not None:
-                off_band = select_rows(off_events, band.mask(off_events))
-                if len(off_band["emission_rad"]):
-                    band_sums = band_sums.subtract(_sums(off_band, calibration, modulation_factor, weighting)[0],
-                                                   background_scale)
+            band_sums = band.stokes_sums(calibration)
+            if has_background and off_band is not None and off_band.n_rows:
+                band_sums = band_sums.subtract(off_band.stokes_sums(calibration), background_scale)
             results.append(StokesResult.from_sums(band_sums, confidence_level=confidence_level,
                                                   label=f"{lo:g}–{hi:g} keV") if band_sums.i > 0 else None)
         bands = StokesBands(edges_kev=edges, results=tuple(results))
-    mu_rel_err = 0.0
-    if modulation_factor is None and calibration is not None and calibration.modulation_factor is not None:
-        curve = calibration.modulation_factor
-        energy = np.asarray(events["energy_kev"], dtype=float)
-        w = np.ones(energy.size) if weights is None else np.asarray(weights, dtype=float)
-        good = np.isfinite(energy) & np.isfinite(w) & np.isfinite(np.asarray(events["emission_rad"], dtype=float))
-        if np.any(good) and w[good].sum() > 0:  # relative error of the effective mu, fully correlated over events
-            rel = curve.error(energy[good]) / curve(energy[good])
-            mu_rel_err = float(np.average(rel, weights=w[good]))
-    phi = np.asarray(events["emission_rad"], dtype=float)
-    modulation = modulation_curve(phi, n_bins=n_bins, weights=weights) if np.isfinite(phi).sum() >= 2 else None
-    if modulation is not None and np.isfinite(phi).sum() >= 5 * n_bins:  # chi-square law: >= 5 events per bin
+    mu_rel_err = float(total.mu_rel_weighted / total.mu_weight) if total.mu_weight > 0 else 0.0
+    histogram = total.histogram
+    modulation = fit_angle_histogram(histogram) if histogram.n_events >= 2 else None
+    if modulation is not None and histogram.n_events >= 5 * n_bins:  # chi-square law: >= 5 events per bin
         warn_if_poor(modulation.quality, f"the modulation curve A + B cos²(φ − φ0) ({n_bins} bins)",
                      advice="the angles hold structure other than cos 2φ, e.g. the 60° pattern of the pixel grid; "
                      "the Stokes result does not assume the curve's shape")
@@ -367,11 +346,24 @@ def measure_polarization(table: Mapping, *, selection: Cut | None = None, calibr
                 else [], "background_selection": None if background_selection is None
                 else background_selection.to_dict(), "background_scale": background_scale, "n_bins": n_bins,
                 "confidence_level": confidence_level}
+    if several:
+        settings["n_tables"] = len(tables)
     map_q_err = float(np.sqrt(max(sums.extra_var_q, 0.0)) / sums.i)
     map_u_err = float(np.sqrt(max(sums.extra_var_u, 0.0)) / sums.i)
     return PolarizationMeasurement(stokes=result, cut_flow=flow, modulation=modulation, bands=bands,
                                    background_cut_flow=background_flow, modulation_factor_rel_err=mu_rel_err,
                                    spurious_map_q_err=map_q_err, spurious_map_u_err=map_u_err, settings=settings)
+
+
+def _with_provenance(table):
+    """A table, or for a table file its provenance only (enough for :func:`estimator_of`)."""
+    import os
+
+    if isinstance(table, str | os.PathLike):
+        from ..io.table import read_table
+
+        return read_table(table, columns=[])
+    return table
 
 
 def _used_parts(calibration, modulation_factor) -> list[str]:

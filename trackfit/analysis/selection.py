@@ -673,13 +673,9 @@ def read_selection(path) -> Cut:
     A settings file of :mod:`trackfit.tuning` (tables ``[recon]`` and ``[selection]``) is read too: its
     ``[selection]`` table is the selection. The default selection is always its first step.
     """
-    import tomllib
+    from .._toml import read_file
 
-    with open(path, "rb") as handle:
-        try:
-            config = tomllib.load(handle)
-        except tomllib.TOMLDecodeError as err:
-            raise SelectionError(f"{path}: not valid TOML: {err}") from None
+    config, _ = read_file(path, what="selection file", error=SelectionError)
     if isinstance(config.get("selection"), dict) and set(config) <= {"recon", "selection"}:
         return selection_from_dict(config["selection"], source=f"{path} [selection]")
     return selection_from_dict(config, source=str(path))

@@ -155,6 +155,12 @@ class SpuriousMap:
         ``var = sum_(node, cell) (sum_k c_k a_k)^2 sigma^2`` with ``a_k`` the interpolation weight. Used by the
         Stokes analysis to include the calibration uncertainty of the subtraction (``c_k = 2 w_k / mu_k``).
         """
+        return self.variance_of_totals(self.cell_totals(energy_kev, x_mm, y_mm, coefficients))
+
+    def cell_totals(self, energy_kev, x_mm, y_mm, coefficients) -> np.ndarray:
+        """``sum_k c_k a_k`` per (energy node, cell), flattened: the part of :meth:`sum_variance` that adds up over
+        events, so the totals of several tables (or blocks of rows) can be summed before
+        :meth:`variance_of_totals` squares them."""
         c = np.asarray(coefficients, dtype=float)
         j0, j1, t, cell = self._weights(energy_kev, x_mm, y_mm)
         good = np.isfinite(c) & np.isfinite(np.asarray(energy_kev, dtype=float))
@@ -162,6 +168,11 @@ class SpuriousMap:
         size = self.energy_kev.size * n_cells
         total = np.bincount(j0[good] * n_cells + cell[good], weights=c[good] * (1 - t[good]), minlength=size)
         total += np.bincount(j1[good] * n_cells + cell[good], weights=c[good] * t[good], minlength=size)
+        return total
+
+    def variance_of_totals(self, totals) -> tuple[float, float]:
+        """Variances of the Q and U sums from :meth:`cell_totals` (``sum (total^2 sigma^2)``)."""
+        total = np.asarray(totals, dtype=float)
         q_var = np.nan_to_num(self.q_err.ravel() ** 2)
         u_var = np.nan_to_num(self.u_err.ravel() ** 2)
         return float(np.sum(total**2 * q_var)), float(np.sum(total**2 * u_var))

@@ -14,9 +14,11 @@ import json
 from pathlib import Path
 
 from ..cli import CommandError
+from ..io.kinds import KINDS as _KNOWN
+from ..io.kinds import plain_attribute
 
 #: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
-KINDS = ("raw-events", "event-table", "calibration", "pixel-map", "response")
+KINDS = tuple(_KNOWN)
 
 
 def register(subparsers):
@@ -49,8 +51,7 @@ def file_kind(path) -> str:
     except OSError as err:
         raise CommandError(f"'{path}' is not a readable HDF5 file ({err})") from None
     with f:
-        kind = f.attrs.get("trackfit_format")
-    kind = kind.decode() if isinstance(kind, bytes) else kind
+        kind = plain_attribute(f.attrs.get("trackfit_format"))
     if kind not in KINDS:
         found = "no trackfit_format attribute" if kind is None else f"trackfit_format {kind!r}"
         raise CommandError(f"'{path}' is not a trackfit file this version knows: expected a root attribute "

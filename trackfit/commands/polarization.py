@@ -1,4 +1,6 @@
-"""``trackfit polarization TABLE -c CAL [cuts]``: polarization of one run with a calibration file.
+"""``trackfit polarization TABLE... -c CAL [cuts]``: polarization of one run, or of several runs together, with a
+calibration file (several tables are read one at a time and their sums combined, so their number does not limit
+the memory).
 
 Prints the Stokes table (degree, angle, errors, Rice interval, MDP99), the cut flow, per-band results and the
 modulation-curve fit; writes a JSON result and figures on request. A thin layer over
@@ -28,7 +30,9 @@ def register(subparsers):
         "the cuts given; it is the first line of the cut flow. A warning says when the status and track-shape cuts "
         "differ from those the calibration was made with; a calibration made with other weights or another "
         "emission-angle estimate is refused.")
-    parser.add_argument("table", metavar="TABLE", help="event table of the run (trackfit reconstruct output)")
+    parser.add_argument("table", metavar="TABLE", nargs="+",
+                        help="event table(s) of the run(s) (trackfit reconstruct output); several tables are measured "
+                        "together, as if concatenated, one at a time in memory")
     parser.add_argument("-c", "--calibration", metavar="CAL",
                         help="calibration file (trackfit calibrate output; default: none, then give "
                         "--modulation-factor)")
@@ -53,8 +57,8 @@ def register(subparsers):
                         help="write the modulation curve and Q/U plane as PNG (default: no figures)")
     add_cut_options(parser, what="source events")
     bkg = parser.add_argument_group("background")
-    bkg.add_argument("--background-table", metavar="TABLE",
-                     help="table of the off-source events (default: the same run)")
+    bkg.add_argument("--background-table", metavar="TABLE", nargs="+",
+                     help="table(s) of the off-source events (default: the same run(s))")
     bkg.add_argument("--background-scale", type=float, metavar="R",
                      help="(area x time on) / (area x time off), >= 0; required with a background (default: "
                      "no background subtracted)")
@@ -77,8 +81,9 @@ def _run(args) -> int:
     from ..analysis import Calibration, measure_polarization
     from ..io.table import read_table
 
-    if not Path(args.table).exists():
-        raise FileNotFoundError(f"event table '{args.table}' does not exist")
+    for path in [*args.table, *(args.background_table or [])]:
+        if not Path(path).exists():
+            raise FileNotFoundError(f"event table '{path}' does not exist")
     if args.background_scale is not None and not args.background_scale >= 0:
         raise CommandError(f"--background-scale must be >= 0 (got {args.background_scale:g})")
     if args.modulation_factor is not None and not 0 < args.modulation_factor <= 1:
@@ -91,25 +96,34 @@ def _run(args) -> int:
                            "with --polarized runs, or --modulation-factor MU")
     selection = selection_from_args(args)
     background_selection = selection_from_args(args, prefix="bkg-") if has_cut_options(args, prefix="bkg-") else None
-    background_table = read_table(args.background_table) if args.background_table else None
-    if (background_selection is not None or background_table is not None) and args.background_scale is None:
+    if (background_selection is not None or args.background_table) and args.background_scale is None:
         raise CommandError("a background (--bkg-* cuts or --background-table) needs --background-scale")
-    table = read_table(args.table)
+    several = len(args.table) > 1
+    # one table is read whole (as before); several are streamed by measure_polarization, one at a time
+    table = [Path(p) for p in args.table] if several else read_table(args.table[0])
+    background_table = None
+    if args.background_table:
+        background_table = ([Path(p) for p in args.background_table] if len(args.background_table) > 1
+                            else read_table(args.background_table[0]))
     with flags_for_parameters(PARAMETER_FLAGS):
         measurement = measure_polarization(
             table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
             weighting=args.weights, background_selection=background_selection, background_table=background_table,
             background_scale=args.background_scale, energy_bands_kev=args.bands, n_bins=args.bins,
             use_gain_drift=args.use_gain_drift, confidence_level=args.confidence, estimator=args.estimator)
-    print(f"run: {args.table}" + (f"   calibration: {args.calibration}" if args.calibration else ""))
+    runs = ", ".join(args.table) if len(args.table) <= 3 else f"{len(args.table)} tables ({args.table[0]}, ...)"
+    print(f"run{'s' if several else ''}: {runs}" + (f"   calibration: {args.calibration}" if args.calibration
+                                                      else ""))
     print(measurement)
     if args.json:
         result = measurement.to_dict()
         from ..analysis.calibrate import table_identity
 
-        result["inputs"] = {"table": table_identity(table, str(args.table)), "calibration": args.calibration,
-                            "background_table": None if background_table is None
-                            else table_identity(background_table, str(args.background_table))}
+        tables = [_identity(p, table_identity) for p in args.table]
+        backgrounds = [_identity(p, table_identity) for p in args.background_table or []]
+        result["inputs"] = {"table": tables[0], "tables": tables, "calibration": args.calibration,
+                            "background_table": backgrounds[0] if backgrounds else None,
+                            "background_tables": backgrounds}
         if calibration is not None:
             result["calibration_provenance"] = calibration.provenance
         from .. import __version__
@@ -122,10 +136,17 @@ def _run(args) -> int:
 
         out = Path(args.figures)
         out.mkdir(parents=True, exist_ok=True)
-        stem = Path(args.table).stem
+        stem = Path(args.table[0]).stem + (f"_and_{len(args.table) - 1}_more" if several else "")
         if measurement.modulation is not None:
             figures.save_figure(figures.plot_modulation_curve(measurement.modulation),
                                 out / f"{stem}_modulation_curve.png")
         figures.save_figure(figures.plot_stokes_plane(measurement.stokes), out / f"{stem}_stokes_plane.png")
         print(f"wrote figures to {out}/")
     return 0
+
+
+def _identity(path, table_identity) -> dict:
+    """What the JSON records of an input table (its provenance and row count; one column is read)."""
+    from ..io.table import read_table
+
+    return table_identity(read_table(path, columns=["emission_rad"]), str(path))

@@ -1,8 +1,11 @@
-"""``trackfit reconstruct RAW... (-o OUT | --out-dir DIR)``: raw event files to event tables.
+"""``trackfit reconstruct RAW... (-o OUT | --out-dir DIR) [--resume]``: raw event files to event tables.
 
-One file runs in this process with kernel threads; several files run in parallel in a process pool started with
-the ``spawn`` method (numba's threading layers may hang in a forked child), or, with ``--scheduler``, as tasks of a
-Dask distributed cluster. One progress bar counts the events of all files.
+With one worker the files run one after the other in this process with kernel threads; with ``--workers N`` they
+run in a process pool started with the ``spawn`` method (numba's threading layers may hang in a forked child), large
+files split into event ranges whose parts are joined (:mod:`trackfit.recon.parts`); with ``--scheduler`` they run as
+tasks of a Dask distributed cluster. One progress bar counts the events of all files. With ``--out-dir`` the
+campaign summary ``trackfit-campaign.json`` of the folder is kept up to date; ``--resume`` skips the outputs that
+are complete and made from the same input and settings (:mod:`trackfit.recon.campaign`).
 """
 
 from __future__ import annotations
@@ -65,11 +68,21 @@ def register(subparsers):
                         "emission_estimator; default: the config's, adaptive unless it says otherwise); the "
                         "two-stage columns are always written")
     parser.add_argument("--workers", type=int, default=1, metavar="N",
-                        help="files reconstructed in parallel, one process each (default 1)")
+                        help="processes reconstructing files (or event ranges of large files) in parallel "
+                        "(default 1: this process, with kernel threads); a process takes about 1.5 s to start, so "
+                        "more than one pays off for many files or files of millions of events")
     parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help="run one task per file on a Dask distributed cluster: a scheduler address "
-                        "(tcp://host:8786) or 'local'; every worker must see the paths (needs trackfit[dask]; "
-                        "default: no cluster, processes on this machine)")
+                        help="run the files as tasks of a Dask distributed cluster, large files as event-range tasks "
+                        "joined by this process: a scheduler address (tcp://host:8786) or 'local'; every worker must "
+                        "see the paths (needs trackfit[dask]; default: no cluster, processes on this machine)")
+    parser.add_argument("--part-events", type=int, default=None, metavar="N",
+                        help="with --workers > 1 or --scheduler: events per range of a split file (default: files "
+                        "of more than 1 000 000 events are split into ranges of about that size, and fewer files "
+                        "than workers are split so that every worker has work)")
+    parser.add_argument("--resume", action="store_true",
+                        help="with --out-dir: skip the outputs that are complete and were made from the same input "
+                        "(content fingerprint), settings and a compatible trackfit version, redo the others, keep "
+                        "the complete parts of an interrupted split file, and say why for each file")
     parser.add_argument("--threads", type=int, default=None, metavar="N",
                         help="kernel threads per file (default: all CPUs with one worker, 1 with several)")
     parser.add_argument("--batch-size", type=int, default=None, metavar="N",
@@ -101,21 +114,12 @@ def _jobs(args):
             if out in seen:
                 raise CommandError(f"'{raw}' and '{seen[out]}' would both be written to '{out}'")
             seen[out] = raw
-    if not args.overwrite:
+    if not args.overwrite and not args.resume:
         for out in outs:
             if out.exists():
-                raise FileExistsError(f"'{out}' exists; pass --overwrite to replace it")
+                raise FileExistsError(f"'{out}' exists; pass --overwrite to replace it, or --resume to keep it when "
+                                      "it is complete and up to date")
     return list(zip(raws, outs, strict=True))
-
-
-def _worker(raw, out, config_toml, options, progress_queue):
-    """Reconstruct one file in a pool process; progress goes to the parent through a manager queue."""
-    from ..recon import ReconConfig, reconstruct_file
-
-    config = ReconConfig.from_toml(config_toml)
-    report = (lambda n: progress_queue.put(n)) if progress_queue is not None else False
-    reconstruct_file(raw, out, config, progress=report, **options)
-    return _summary(out)
 
 
 def _summary(out) -> str:
@@ -179,6 +183,12 @@ def run(args) -> int:
         raise CommandError(f"--batch-size must be >= 1 (got {args.batch_size})")
     if args.threads is not None and args.threads < 1:
         raise CommandError(f"--threads must be >= 1 (got {args.threads})")
+    if args.part_events is not None and args.part_events < 1:
+        raise CommandError(f"--part-events must be >= 1 (got {args.part_events})")
+    if args.resume and args.out_dir is None:
+        raise CommandError("--resume needs --out-dir DIR (the folder whose outputs and campaign summary it resumes)")
+    if args.resume and args.overwrite:
+        raise CommandError("--resume keeps complete outputs and --overwrite replaces them: give one of the two")
     config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
     config = _with_pixel_map(config, args)
     if args.estimator is not None:
@@ -193,76 +203,123 @@ def run(args) -> int:
             if not reader.pedestal_subtracted and not config.pixel_map:
                 raise CommandError(f"'{raw}' holds raw ADC values (pedestal_subtracted = false): give a pixel map "
                                    "with the pedestals, --pixel-map MAP.h5 (made by `trackfit pixel-map`)")
-    workers = min(args.workers, len(jobs))
-    threads = args.threads if args.threads is not None else ((os.cpu_count() or 1) if workers == 1 else 1)
-    options = {"threads": threads, "strict": args.strict, "overwrite": args.overwrite}
-    if args.batch_size is not None:
-        options["batch_size"] = args.batch_size
+    summary = None
+    if args.out_dir is not None:
+        from ..recon.campaign import CampaignSummary
 
+        summary = CampaignSummary(args.out_dir, config_toml=config.to_toml(), inputs=jobs, resume=args.resume)
+    todo, overwrite, skipped = _resume(jobs, totals, config, args, summary)
     from tqdm.auto import tqdm
 
-    bar = tqdm(total=sum(totals), unit=" events", unit_scale=True, disable=args.no_progress, dynamic_ncols=True,
-               desc="reconstruct")
+    bar = tqdm(total=sum(n for (raw, _), n in zip(jobs, totals, strict=True) if raw in todo),
+               unit=" events", unit_scale=True, disable=args.no_progress, dynamic_ncols=True, desc="reconstruct")
     failures = []
+
+    def report(result):
+        if result.error:
+            failures.append(f"{result.raw_path}: {result.error}")
+            if summary is not None:
+                summary.update(result.raw_path, state="failed", error=result.error, seconds=round(result.seconds, 3))
+            return
+        bar.write(_summary(result.out_path) + _parts_note(result))
+        if summary is not None:
+            summary.record_table(result.raw_path, result.out_path, state="done", reason=todo_reasons.get(
+                result.raw_path, ""), seconds=result.seconds, n_parts=result.n_parts,
+                n_parts_reused=result.n_parts_reused)
+
+    todo_reasons = {str(raw): reason for raw, reason in todo.items()}
     try:
-        if args.scheduler:
-            from ..recon.distributed import reconstruct_on_cluster
-
-            options["threads"] = args.threads or 1
-
-            def report(result):
-                bar.update(result.n_rows)
-                if result.error:
-                    failures.append(f"{result.raw_path}: {result.error}")
-                else:
-                    bar.write(str(result))
-
-            reconstruct_on_cluster(jobs, config, scheduler=args.scheduler, on_result=report, **options)
-        elif workers == 1:
-            from ..recon import reconstruct_file
-
-            for raw, out in jobs:
-                try:
-                    reconstruct_file(raw, out, config, progress=bar.update, **options)
-                except (ValueError, OSError, KeyError) as err:
-                    failures.append(f"{raw}: {err}")
-                    continue
-                bar.write(_summary(out))
-        else:
-            failures = _run_pool(jobs, config, options, workers, bar)
+        _run_jobs(list(todo), overwrite, config, args, bar, report)
     finally:
         bar.close()
+        if summary is not None:
+            summary.finish_run()
+    if args.resume or skipped:
+        print(f"{len(todo) - len(failures)} reconstructed, {skipped} skipped (complete and up to date), "
+              f"{len(failures)} failed" + (f"; campaign summary: {summary.path}" if summary is not None else ""))
+    elif summary is not None and len(jobs) > 1:
+        print(f"campaign summary: {summary.path}")
     if failures:
         raise CommandError("; ".join(failures))
     return 0
 
 
-def _run_pool(jobs, config, options, workers, bar):
-    import multiprocessing
-    import queue
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+def _resume(jobs, totals, config, args, summary):
+    """The jobs to run (raw -> reason), whether each may replace its output, and the number skipped."""
+    todo, overwrite, skipped = {}, [], 0
+    if not args.resume:
+        for raw, _ in jobs:
+            todo[raw] = ""
+        return todo, [bool(args.overwrite)] * len(jobs), 0
+    from ..recon.campaign import resume_decision
+    from ..recon.identity import file_settings_hash
 
-    context = multiprocessing.get_context("spawn")
-    failures = []
-    with context.Manager() as manager, ProcessPoolExecutor(workers, mp_context=context) as pool:
-        progress = manager.Queue()
-        futures = {pool.submit(_worker, raw, out, config.to_toml(), options, progress): raw for raw, out in jobs}
-        pending = set(futures)
+    map_fingerprint = None
+    if config.pixel_map:
+        from ..io.pixelmap import read_pixel_map
 
-        def drain():
-            while True:
-                try:
-                    bar.update(progress.get_nowait())
-                except queue.Empty:
-                    return
+        map_fingerprint = read_pixel_map(config.pixel_map).fingerprint
+    for (raw, out), n_events in zip(jobs, totals, strict=True):
+        digest = file_settings_hash(config, raw, with_truth=True, strict=args.strict,
+                                    pixel_map_fingerprint=map_fingerprint)
+        decision = resume_decision(raw, out, settings=digest, n_events=n_events)
+        if decision.skip:
+            skipped += 1
+            print(f"skipped {raw}: {decision.reason}")
+            summary.record_table(raw, out, state="skipped", reason=decision.reason)
+        else:
+            print(f"to do {raw}: {decision.reason}")
+            summary.update(raw, reason=decision.reason)
+            todo[raw] = decision.reason
+            overwrite.append(out.exists())
+    return todo, overwrite, skipped
 
-        while pending:
-            done, pending = wait(pending, timeout=0.2, return_when=FIRST_COMPLETED)
-            drain()
-            for future in done:
-                try:
-                    bar.write(future.result())
-                except (ValueError, OSError, KeyError) as err:
-                    failures.append(f"{futures[future]}: {err}")
-        drain()
-    return failures
+
+def _run_jobs(raws, overwrite, config, args, bar, report):
+    if not raws:
+        return
+    pairs = [(raw, _output_of(raw, args)) for raw in raws]
+    options = {"strict": args.strict, "overwrite": overwrite}
+    if args.batch_size is not None:
+        options["batch_size"] = args.batch_size
+    if args.scheduler:
+        from ..recon.distributed import reconstruct_on_cluster
+
+        def on_result(result):
+            bar.update(result.n_rows)
+            report(result)
+
+        reconstruct_on_cluster(pairs, config, scheduler=args.scheduler, on_result=on_result,
+                               part_events=args.part_events, threads=args.threads or 1, **options)
+        return
+    from ..recon.parts import plan_jobs, run_jobs_here, run_jobs_locally
+
+    if args.workers > 1:
+        jobs = plan_jobs(pairs, config, workers=args.workers, part_events=args.part_events,
+                         threads=args.threads or 1, **options)
+        run_jobs_locally(jobs, args.workers, on_result=report, progress=bar.update)
+        return
+    threads = args.threads if args.threads is not None else (os.cpu_count() or 1)
+    # one process: whole files with kernel threads (parts only to finish those of an interrupted split run)
+    jobs = plan_jobs(pairs, config, workers=1, part_events=args.part_events or _NO_SPLIT, threads=threads,
+                     **options)
+    run_jobs_here(jobs, on_result=report, progress=bar.update)
+
+
+#: with one process a file is never split (unless --part-events asks for it)
+_NO_SPLIT = 1 << 62
+
+
+def _output_of(raw, args) -> Path:
+    if args.output is not None:
+        return Path(args.output)
+    from ..recon.pipeline import output_name
+
+    return output_name(raw, args.out_dir)
+
+
+def _parts_note(result) -> str:
+    if result.n_parts <= 1:
+        return ""
+    reused = f", {result.n_parts_reused} reused" if result.n_parts_reused else ""
+    return f"; joined from {result.n_parts} parts{reused}"

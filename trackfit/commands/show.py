@@ -23,6 +23,10 @@ def register(subparsers):
     parser.add_argument("--config", metavar="TOML",
                         help="reconstruction settings for the overlay (default: the built-in settings, see "
                         "trackfit reconstruct --print-settings)")
+    parser.add_argument("--pixel-map", metavar="MAP.h5",
+                        help="pixel map (trackfit pixel-map): its pedestals are subtracted from files that are not "
+                        "pedestal-subtracted, and its hot, dead and noisy pixels are ignored, as trackfit "
+                        "reconstruct --pixel-map does (overrides the config's; default: the config's, none)")
     parser.add_argument("--no-overlay", action="store_true", help="draw the pixels only")
     parser.add_argument("--threshold-adc", type=float, default=None, metavar="ADC",
                         help="draw pixels at or below this value as outlines (default: the reconstruction "
@@ -31,6 +35,8 @@ def register(subparsers):
 
 
 def run(args) -> int:
+    import dataclasses
+
     import matplotlib
 
     from ..io.raw import open_raw
@@ -38,27 +44,43 @@ def run(args) -> int:
 
     if args.event < 0:
         raise CommandError(f"--event must be >= 0 (got {args.event})")
+    from ..recon import ReconConfig
+    from ..recon.clusters import event_as_reconstructed
+
     with open_raw(args.file) as reader:
         event = reader[args.event]
         batch = reader.read_batch(event.index, event.index + 1, with_truth=False)
-        run_info = reader.run_info
+        run_info, subtracted = reader.run_info, reader.pedestal_subtracted
+    config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
+    if args.pixel_map:
+        if not Path(args.pixel_map).exists():
+            raise CommandError(f"--pixel-map: pixel map '{args.pixel_map}' does not exist")
+        config = dataclasses.replace(config, pixel_map=args.pixel_map)
+    if not subtracted and not config.pixel_map:
+        raise CommandError(f"'{args.file}' holds raw ADC values (pedestal_subtracted = false): give the pixel map "
+                           "with its pedestals (--pixel-map MAP.h5, measured with trackfit pixel-map)")
+    # the pixels as the reconstruction sees them: pedestals subtracted, the map's bad pixels ignored
+    raw_event = event
+    event, ignored, _ = event_as_reconstructed(raw_event, config, pedestal_subtracted=subtracted)
     result, provenance, outside, threshold = None, None, None, args.threshold_adc
     roi_line = f"event {event.index} (trigger {event.trigger_id}): ROI {int(event.roi[2])} x {int(event.roi[3])} = " \
-               f"{len(event.signal)} pixels"
+               f"{len(event.signal)} pixels" + ("" if subtracted else ", pedestals of the pixel map subtracted") \
+               + (f", {int(ignored.sum())} of them ignored (bad pixels)" if ignored.any() else "")
     if args.no_overlay:
         print(roi_line)
     else:
         from ..analysis.estimates import with_estimate
-        from ..recon import ReconConfig, reconstruct
+        from ..recon import reconstruct
         from ..recon.clusters import event_clusters
 
-        config = ReconConfig.read_toml(args.config) if args.config else ReconConfig()
         table = with_estimate(reconstruct(batch, config, run_info=run_info))  # the settings' emission estimate
         result, provenance = table.row(0), table.provenance
-        clusters = event_clusters(event, config)
+        clusters = event_clusters(raw_event, config, pedestal_subtracted=subtracted)
         outside = clusters.outside_main
         threshold = config.threshold_adc if threshold is None else threshold
-        print(f"{roi_line}, {int((clusters.labels > 0).sum())} above threshold_adc = {config.threshold_adc:g} in "
+        cut = (f"threshold_noise_rms = {config.threshold_noise_rms:g} x each pixel's noise"
+               if config.pixel_map and config.threshold_noise_rms > 0 else f"threshold_adc = {config.threshold_adc:g}")
+        print(f"{roi_line}, {int((clusters.labels > 0).sum())} above {cut} in "
               f"{clusters.n_clusters} cluster(s); main cluster {int(clusters.in_main.sum())} pixels "
               f"(n_pixels), {int(outside.sum())} pixels outside it (hatched)")
         print(_describe(result, provenance, config.emission_estimator))
@@ -75,6 +97,7 @@ def run(args) -> int:
         plt.show()
     else:
         ax.figure.savefig(output, dpi=150)
+        plt.close(ax.figure)
         print(f"wrote {output}")
     return 0
 

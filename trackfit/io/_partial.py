@@ -70,7 +70,11 @@ class PartialFileWriter:
         """Finish the file and give it its final name; returns the path."""
         if self.closed:
             return self.path
-        self._finish()
+        try:
+            self._finish()
+        except BaseException:
+            self.abort()
+            raise
         self._file.close()
         self._file = None
         os.replace(self._partial, self.path)

@@ -21,6 +21,7 @@ import numpy as np
 
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter
+from .kinds import open_kind, plain_attribute
 
 __all__ = ["PixelMap", "PixelCode", "SourceRun", "PixelMapFormatError", "PixelMapMismatchError", "read_pixel_map",
            "write_pixel_map", "CODE_DOCS", "MASKED_CODES", "MAP_ARRAYS", "FORMAT_NAME", "FORMAT_VERSION"]
@@ -301,16 +302,6 @@ def _attr(value):
     return value
 
 
-def _plain(value):
-    if isinstance(value, bytes):
-        return value.decode()
-    if isinstance(value, np.ndarray):
-        return [_plain(v) for v in value.tolist()]
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
-
-
 class _PixelMapWriter(PartialFileWriter):
     format_name = FORMAT_NAME
     format_version = FORMAT_VERSION
@@ -366,26 +357,15 @@ def read_pixel_map(path) -> PixelMap:
         an unknown code, or content that no longer matches the fingerprint written with it.
     """
     path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"pixel map '{path}' does not exist")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as err:
-        raise PixelMapFormatError(path, f"not a readable HDF5 file ({err})") from None
+    f, attrs = open_kind(path, FORMAT_NAME, what="pixel map", error=PixelMapFormatError)
     with f:
-        attrs = {k: _plain(v) for k, v in f.attrs.items()}
-        kind = attrs.get("trackfit_format")
-        if kind != FORMAT_NAME:
-            hint = " (a raw event file: make a map from it with `trackfit pixel-map`)" if kind == "raw-events" else ""
-            raise PixelMapFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' (got {kind!r})"
-                                      + hint, dataset="/")
         if attrs.get("format_version") != FORMAT_VERSION:
             raise PixelMapFormatError(path, f"unknown format_version {attrs.get('format_version')!r}; this trackfit "
                                       f"reads version {FORMAT_VERSION}", dataset="/")
         if "geometry" not in f:
             raise PixelMapFormatError(path, "missing group", dataset="/geometry")
         try:
-            grid = HexGrid.from_dict({k: _plain(v) for k, v in f["geometry"].attrs.items()})
+            grid = HexGrid.from_dict({k: plain_attribute(v) for k, v in f["geometry"].attrs.items()})
         except (KeyError, ValueError, TypeError) as err:
             raise PixelMapFormatError(path, f"bad chip geometry ({err})", dataset="/geometry") from None
         arrays = {}
@@ -400,12 +380,12 @@ def read_pixel_map(path) -> PixelMap:
             if ds.dtype != dtype:
                 raise PixelMapFormatError(path, f"expected dtype {dtype.name}, found {ds.dtype}", dataset=where)
             arrays[name] = ds[()]
-        settings = {k: _plain(v) for k, v in f["settings"].attrs.items()} if "settings" in f else {}
-        statistics = {k: _plain(v) for k, v in f["statistics"].attrs.items()} if "statistics" in f else {}
+        settings = {k: plain_attribute(v) for k, v in f["settings"].attrs.items()} if "settings" in f else {}
+        statistics = {k: plain_attribute(v) for k, v in f["statistics"].attrs.items()} if "statistics" in f else {}
         sources = []
         if "sources" in f:
             try:
-                columns = {name: _plain(f["sources"][name][()]) for name in _SOURCE_FIELDS}
+                columns = {name: plain_attribute(f["sources"][name][()]) for name in _SOURCE_FIELDS}
                 sources = [SourceRun(name=str(columns["name"][i]), fingerprint=str(columns["fingerprint"][i]),
                                      n_events=int(columns["n_events"][i]),
                                      trigger_mode=str(columns["trigger_mode"][i]),

@@ -18,6 +18,7 @@ from ..events import Event, EventBatch, find_bad_events
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+from .kinds import open_kind
 
 __all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION",
            "TRIGGER_MODES"]
@@ -34,14 +35,6 @@ EVENT_DATASETS = {
     "trigger_id": (np.dtype(np.int64), ()),
 }
 GEOMETRY_ATTRIBUTES = ("pitch_mm", "n_columns", "n_rows", "shifted_rows")
-#: what to tell a user who gives another trackfit file where a raw event file is expected
-_OTHER_KINDS = {
-    "event-table": ": this is an event table, already reconstructed (summarise it with trackfit info, read it with "
-                   "trackfit.read_table)",
-    "calibration": ": this is a calibration file (made by trackfit calibrate), not a raw event file",
-    "pixel-map": ": this is a pixel map (made by trackfit pixel-map; give it to trackfit reconstruct --pixel-map), "
-                 "not a raw event file",
-}
 #: values of the optional ``/events`` attribute ``trigger_mode``: ``"self"`` (default when absent) - the chip
 #: triggered on its own signal (source or beam runs); ``"random"`` - random or periodic triggers without a source
 #: (pedestal runs: every pixel of every event is a noise sample)
@@ -272,14 +265,10 @@ class RawEventReader:
         self.strict = strict
         self.bad_events: list[tuple[int, str]] = []
         self._reported: set[int] = set()
-        if not self.path.exists():
-            raise FileNotFoundError(f"raw event file '{self.path}' does not exist")
+        self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file",
+                                      error=RawFormatError)
         try:
-            self._file = h5py.File(self.path, "r")
-        except OSError as err:
-            raise RawFormatError(self.path, f"not a readable HDF5 file ({err})") from None
-        try:
-            self._check_header()
+            self._check_header(attrs)
         except Exception:
             self._file.close()
             raise
@@ -288,16 +277,11 @@ class RawEventReader:
     def _error(self, message, dataset=None, event=None):
         return RawFormatError(self.path, message, dataset=dataset, event=event)
 
-    def _check_header(self):
+    def _check_header(self, attrs: dict):
         f = self._file
-        attrs = {k: _decode(v) for k, v in f.attrs.items()}
-        for key in ("trackfit_format", "format_version", "created_by", "created_utc"):
+        for key in ("format_version", "created_by", "created_utc"):
             if key not in attrs:
                 raise self._error(f"missing root attribute '{key}'", dataset="/")
-        if attrs["trackfit_format"] != FORMAT_NAME:
-            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
-            raise self._error(f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                              f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
         if attrs["format_version"] != FORMAT_VERSION:
             raise self._error(f"unknown format_version {attrs['format_version']!r}; this trackfit reads "
                               f"version {FORMAT_VERSION}", dataset="/")
@@ -414,8 +398,14 @@ class RawEventReader:
             out[: min(b, m) - a] = ds[a:min(b, m)]
         return out
 
-    def read_batch(self, a: int, b: int, *, with_truth: bool = True) -> EventBatch:
-        """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs)."""
+    def read_batch(self, a: int, b: int, *, with_truth: bool = True, buffer=None) -> EventBatch:
+        """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs).
+
+        ``buffer``: a callable ``buffer(n_pixels)`` returning an int16 array of at least ``n_pixels`` values to read
+        the signal into (streaming callers reuse a few buffers instead of new memory for every batch); the batch's
+        signal is then a view of it, valid until the caller reuses the buffer. Batches with malformed events are
+        read into new memory.
+        """
         if not 0 <= a <= b <= self._n:
             raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
         roi = self._roi[a:b]
@@ -449,7 +439,18 @@ class RawEventReader:
             roi[bad] = 0
         if not bad.any():
             s0 = int(start[0])
-            signal = self._signal[s0:int(start[-1])]
+            n_pix = int(start[-1]) - s0
+            memory = buffer(n_pix) if buffer is not None and n_pix > 0 else None
+            if memory is not None:
+                if memory.dtype != np.int16 or memory.ndim != 1 or memory.size < n_pix:
+                    raise ValueError(f"'buffer' gave an array of {memory.dtype} {memory.shape}; expected int16 of at "
+                                     f"least {n_pix} values")
+                signal = memory[:n_pix]
+                space = self._signal.id.get_space()
+                space.select_hyperslab((s0,), (n_pix,))
+                self._signal.id.read(h5py.h5s.create_simple((n_pix,)), space, signal)
+            else:
+                signal = self._signal[s0:int(start[-1])]
             new_start = start - s0
         else:
             # gather only the good events' pixel ranges
@@ -524,6 +525,13 @@ class RawEventReader:
         if missing:
             raise KeyError(f"'{self.path}' has no truth columns {missing}; it has {self.truth_names}")
         return {name: self._file["truth"][name][start:stop] for name in names}
+
+    def truth_dataset(self, name: str) -> h5py.Dataset:
+        """The HDF5 dataset ``/truth/<name>`` itself (for copies made by HDF5 without reading it, e.g.
+        :meth:`trackfit.io.table.TableWriter.copy_column`); valid while the reader is open."""
+        if name not in self.truth_names:
+            raise KeyError(f"'{self.path}' has no truth column {name!r}; it has {self.truth_names}")
+        return self._file["truth"][name]
 
     def validate(self, batch_size: int = DEFAULT_BATCH_SIZE) -> list[tuple[int, str]]:
         """Scan the whole file; return every malformed event as (index, reason) (never raises for events)."""

@@ -24,6 +24,7 @@ import numpy as np
 from ._partial import PartialFileWriter
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 from .energy_label import describe_energy_scale, energy_is_calibrated, energy_scale_source
+from .kinds import open_kind
 
 __all__ = [
     "EventTable",
@@ -404,6 +405,11 @@ class TableWriter(PartialFileWriter):
         (:func:`chunk_rows_for`), so a small table takes little more space than its data.
     chunk_rows : int, optional
         Chunk length of every column dataset (default: from ``expected_rows``).
+    exact_rows : bool
+        ``expected_rows`` is exactly the number of rows that will be appended (the events of an input file): an
+        uncompressed table then stores its columns contiguously, written straight to the file (no chunk index,
+        no chunk cache to flush at close), and appending more rows or closing with fewer raises ValueError.
+        Compressed tables are always chunked.
     descriptions : dict, optional
         ``name -> (unit, description)`` for columns not in :data:`COLUMN_DOCS`.
     overwrite : bool
@@ -419,8 +425,8 @@ class TableWriter(PartialFileWriter):
     format_version = FORMAT_VERSION
 
     def __init__(self, path, *, provenance=None, compression: str = DEFAULT_COMPRESSION,
-                 expected_rows: int | None = None, chunk_rows: int | None = None, descriptions=None,
-                 overwrite: bool = False):
+                 expected_rows: int | None = None, chunk_rows: int | None = None, exact_rows: bool = False,
+                 descriptions=None, overwrite: bool = False):
         from .. import __version__
 
         if chunk_rows is None:
@@ -433,7 +439,15 @@ class TableWriter(PartialFileWriter):
         self._descriptions = dict(descriptions or {})
         self._columns: list[str] | None = None
         self._dtypes: dict[str, np.dtype] = {}
+        self._datasets: dict[str, h5py.Dataset] = {}
+        self._copied: list[str] = []  # columns copied whole from another file (copy_column), after the appended ones
         self._n = 0
+        # datasets are created with the expected length and trimmed by close(): no resize per append
+        self._allocated = max(0, int(expected_rows or 0))
+        if exact_rows and expected_rows is None:
+            raise ValueError("'exact_rows' needs 'expected_rows', the number of rows that will be appended")
+        # contiguous columns: HDF5 needs a non-empty fixed size and no filter
+        self._contiguous = bool(exact_rows) and self._allocated > 0 and not self._filters
         f = self._open(path, overwrite=overwrite)
         try:
             f.create_group("events", track_order=True)
@@ -449,13 +463,14 @@ class TableWriter(PartialFileWriter):
 
     @property
     def columns(self) -> list[str]:
-        return list(self._columns or [])
+        return list(self._columns or []) + self._copied
 
     def _create(self, columns: dict[str, np.ndarray]) -> None:
         events = self._file["events"]
+        layout = {} if self._contiguous else {"maxshape": (None,), "chunks": (self._chunk_rows,), **self._filters}
         for name, arr in columns.items():
-            ds = events.create_dataset(name, shape=(0,), maxshape=(None,), dtype=arr.dtype,
-                                       chunks=(self._chunk_rows,), **self._filters)
+            ds = events.create_dataset(name, shape=(self._allocated,), dtype=arr.dtype, **layout)
+            self._datasets[name] = ds
             unit, text = None, None
             if name in COLUMN_DOCS:
                 _, unit, text = COLUMN_DOCS[name]
@@ -466,7 +481,10 @@ class TableWriter(PartialFileWriter):
                 ds.attrs["description"] = text
         self._columns = list(columns)
         self._dtypes = {name: arr.dtype for name, arr in columns.items()}
-        events.attrs["column_order"] = np.array(self._columns, dtype=h5py.string_dtype())
+        self._write_column_order()
+
+    def _write_column_order(self) -> None:
+        self._file["events"].attrs["column_order"] = np.array(self.columns, dtype=h5py.string_dtype())
 
     def append(self, columns: Mapping) -> None:
         """Append rows given as a mapping of equal-length 1-D arrays (an :class:`EventTable` works).
@@ -483,7 +501,7 @@ class TableWriter(PartialFileWriter):
                              f"{ {n: len(a) for n, a in arrays.items()} })")
         if self._columns is None:
             self._create(arrays)
-        elif set(arrays) != set(self._columns):
+        elif set(arrays) != set(self._columns) or set(arrays) & set(self._copied):
             raise ValueError(f"columns {sorted(arrays)} differ from those of earlier appends {sorted(self._columns)}")
         n_new = lengths.pop() if lengths else 0
         if n_new == 0:
@@ -498,12 +516,49 @@ class TableWriter(PartialFileWriter):
                     raise ValueError(f"column '{name}': values do not fit the column dtype {dtype}")
                 values = cast
             ready[name] = values
+        end = self._n + n_new
+        if end > self._allocated and self._contiguous:
+            raise ValueError(f"'{self.path}': {end} rows appended, more than the {self._allocated} announced "
+                             "(expected_rows with exact_rows=True)")
+        if end > self._allocated:
+            self._allocated = max(end, 2 * self._allocated)
+            for ds in self._datasets.values():
+                ds.resize((self._allocated,))
+        memory = h5py.h5s.create_simple((n_new,))
+        for name, values in ready.items():  # the low-level write: a tenth of the cost of ds[a:b] = values
+            ds = self._datasets[name]
+            space = ds.id.get_space()
+            space.select_hyperslab((self._n,), (n_new,))
+            ds.id.write(memory, space, np.ascontiguousarray(values))
+        self._n = end
+
+    def copy_column(self, name: str, source: h5py.Dataset, *, description: tuple[str, str] | None = None) -> None:
+        """Copy a whole 1-D dataset of another HDF5 file in as column ``name``, placed after the appended columns.
+
+        HDF5 copies the stored data (``H5Ocopy``: chunks, filters and attributes as they are), without a pass
+        through memory; the reconstruction copies the simulation truth of a raw file this way. The dataset must end
+        up as long as the appended columns: :meth:`close` checks it.
+        """
+        if self.closed:
+            raise ValueError(f"table writer for '{self.path}' is closed")
+        if not isinstance(source, h5py.Dataset) or source.ndim != 1 or source.dtype.kind not in "biuf":
+            raise ValueError(f"column '{name}' must be copied from a 1-D numeric dataset (got {source!r})")
+        if name in self.columns:
+            raise ValueError(f"column '{name}' already exists in '{self.path}'")
         events = self._file["events"]
-        for name, values in ready.items():
-            ds = events[name]
-            ds.resize((self._n + n_new,))
-            ds[self._n:] = values
-        self._n += n_new
+        # both uncompressed and no chunk longer than the data: HDF5 copies the stored bytes
+        if not self._filters and not source._filters and (source.chunks or (0,))[0] <= source.shape[0]:
+            events.copy(source, name)
+        else:  # through memory, with this table's filter and chunks
+            target = events.create_dataset(name, shape=source.shape, maxshape=(None,), dtype=source.dtype,
+                                           chunks=(max(1, min(self._chunk_rows, source.shape[0])),), **self._filters)
+            step = 1 << 20
+            for a in range(0, source.shape[0], step):
+                target[a:a + step] = source[a:a + step]
+        if description is not None:
+            events[name].attrs["unit"], events[name].attrs["description"] = description
+        self._copied.append(name)
+        self._write_column_order()
 
     def set_provenance(self, **values) -> None:
         """Add or replace entries of ``/provenance`` (e.g. the input fingerprint, known only at the end)."""
@@ -512,6 +567,17 @@ class TableWriter(PartialFileWriter):
         _write_provenance(self._provenance, values)
 
     def _finish(self) -> None:
+        if self._contiguous and self._n != self._allocated:
+            raise ValueError(f"'{self.path}': {self._n} rows appended, not the {self._allocated} announced "
+                             "(expected_rows with exact_rows=True)")
+        for ds in self._datasets.values():
+            if ds.shape[0] != self._n:
+                ds.resize((self._n,))
+        events = self._file["events"]
+        for name in self._copied:
+            if events[name].shape[0] != self._n:
+                raise ValueError(f"'{self.path}': copied column '{name}' has {events[name].shape[0]} rows, the table "
+                                 f"{self._n}")
         self._file["events"].attrs["n_rows"] = self._n
 
 
@@ -550,13 +616,6 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
 
 # ---------------------------------------------------------------------- reading
 #: what to tell a user who gives another trackfit file where an event table is expected
-_OTHER_KINDS = {
-    "raw-events": ": this is a raw event file; reconstruct it into an event table first: "
-                  "trackfit reconstruct RAW.h5 -o TABLE.h5 (trackfit.reconstruct_file in Python)",
-    "calibration": ": this is a calibration file (made by trackfit calibrate), not an event table",
-}
-
-
 def _read_provenance(group: h5py.Group) -> dict:
     out = {k: _decode(v) for k, v in group.attrs.items()}
     for key, item in group.items():
@@ -593,21 +652,10 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
         An unknown column name; the message lists the available columns.
     """
     path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"event table '{path}' does not exist")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as err:
-        raise TableFormatError(path, f"not a readable HDF5 file ({err})") from None
+    f, attrs = open_kind(path, FORMAT_NAME, what="event table", error=TableFormatError)
     with f:
-        attrs = {k: _decode(v) for k, v in f.attrs.items()}
-        for key in ("trackfit_format", "format_version"):
-            if key not in attrs:
-                raise TableFormatError(path, f"missing root attribute '{key}'", dataset="/")
-        if attrs["trackfit_format"] != FORMAT_NAME:
-            hint = _OTHER_KINDS.get(attrs["trackfit_format"], "")
-            raise TableFormatError(path, f"attribute 'trackfit_format' must be '{FORMAT_NAME}' "
-                                         f"(got {attrs['trackfit_format']!r}){hint}", dataset="/")
+        if "format_version" not in attrs:
+            raise TableFormatError(path, "missing root attribute 'format_version'", dataset="/")
         version = attrs["format_version"]
         if version not in READABLE_VERSIONS:
             raise TableFormatError(path, f"unknown format_version {version!r}; this trackfit reads versions "

@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, fields
-from pathlib import Path
 
-from .._toml import dumps
+from .._toml import dumps, parse, read_file
 
 __all__ = ["PixelMapSettings"]
 
@@ -130,15 +128,9 @@ class PixelMapSettings:
 
     @classmethod
     def from_toml(cls, text: str, *, source: str = "TOML text") -> PixelMapSettings:
-        try:
-            values = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as err:
-            raise ValueError(f"{source}: not valid TOML ({err})") from None
-        return cls.from_dict(values, source=source)
+        return cls.from_dict(parse(text, source=source), source=source)
 
     @classmethod
     def read_toml(cls, path) -> PixelMapSettings:
-        path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"settings file '{path}' does not exist")
-        return cls.from_toml(path.read_text(), source=f"settings file '{path}'")
+        values, source = read_file(path, what="settings file")
+        return cls.from_dict(values, source=source)

@@ -20,7 +20,7 @@ from scipy import ndimage
 from ..events import Event
 from .config import ReconConfig
 
-__all__ = ["EventClusters", "event_clusters"]
+__all__ = ["EventClusters", "event_clusters", "event_as_reconstructed"]
 
 #: 6-neighbour structure in axial coordinates (q, r): neighbours (q +- 1, r), (q, r +- 1), (q - 1, r + 1),
 #: (q + 1, r - 1); indexed [dr + 1, dq + 1]
@@ -58,7 +58,61 @@ class EventClusters:
         return (self.labels > 0) & ~self.in_main
 
 
-def event_clusters(event: Event, config: ReconConfig | None = None) -> EventClusters:
+def event_as_reconstructed(event: Event, config: ReconConfig | None = None, *,
+                           pedestal_subtracted: bool = True) -> tuple[Event, np.ndarray, np.ndarray]:
+    """The pixels of one event as the reconstruction sees them, for displays.
+
+    Parameters
+    ----------
+    event : Event
+    config : ReconConfig, optional
+        Its ``bad_pixels``, ``threshold_adc`` and pixel map (``pixel_map``, ``threshold_noise_rms``) are used.
+    pedestal_subtracted : bool
+        Whether the event's file is pedestal-subtracted (``reader.pedestal_subtracted``); when it is not, the
+        pedestals of the config's pixel map are subtracted (rounded half to even, as the reconstruction does).
+
+    Returns
+    -------
+    (Event, ndarray of bool, ndarray of float64)
+        The event with the signal the reconstruction uses, the ROI pixels it ignores (bad pixels of the config and
+        masked pixels of the map), and the threshold of each ROI pixel in ADC counts (a pixel takes part when its
+        signal is above it).
+
+    Raises
+    ------
+    ValueError
+        The file is not pedestal-subtracted and the config names no pixel map.
+    """
+    import dataclasses
+
+    config = config or ReconConfig()
+    c0, r0, nc, nr = (int(v) for v in event.roi)
+    rows, cols = np.arange(r0, r0 + nr), np.arange(c0, c0 + nc)
+    ignored = np.zeros((nr, nc), dtype=bool)
+    threshold = np.full((nr, nc), float(math.floor(config.threshold_adc)))
+    if config.bad_pixels:
+        bad = config.bad_pixel_map(event.grid).reshape(event.grid.n_rows, event.grid.n_columns).astype(bool)
+        ignored |= bad[np.ix_(rows, cols)]
+    signal = np.asarray(event.signal)
+    if config.pixel_map:
+        from ..io.pixelmap import read_pixel_map
+
+        pixel_map = read_pixel_map(config.pixel_map)
+        pixel_map.check_grid(event.grid, f"event {event.index}")
+        ignored |= pixel_map.masked[np.ix_(rows, cols)]
+        if config.threshold_noise_rms > 0:
+            threshold = np.floor(config.threshold_noise_rms * pixel_map.noise_for_threshold()[np.ix_(rows, cols)])
+        if not pedestal_subtracted:
+            pedestal = pixel_map.pedestal_for_subtraction()[np.ix_(rows, cols)].ravel()
+            signal = np.clip(np.rint(signal - pedestal), -32768, 32767).astype(np.int16)
+    elif not pedestal_subtracted:
+        raise ValueError(f"event {event.index} holds raw ADC values (its file is not pedestal-subtracted): give a "
+                         "pixel map with the pedestals (ReconConfig.pixel_map, or --pixel-map on the command line)")
+    return dataclasses.replace(event, signal=signal), ignored.ravel(), threshold.ravel()
+
+
+def event_clusters(event: Event, config: ReconConfig | None = None, *,
+                   pedestal_subtracted: bool = True) -> EventClusters:
     """Label the pixels of one event as the reconstruction sees them.
 
     Parameters
@@ -66,7 +120,9 @@ def event_clusters(event: Event, config: ReconConfig | None = None) -> EventClus
     event : Event
         From ``reader[i]`` or ``batch.event(i)``.
     config : ReconConfig, optional
-        Its ``threshold_adc`` and ``bad_pixels`` are used (default ``ReconConfig()``).
+        Its ``threshold_adc``, ``bad_pixels`` and pixel map are used (default ``ReconConfig()``).
+    pedestal_subtracted : bool
+        Whether the event's file is pedestal-subtracted (see :func:`event_as_reconstructed`).
 
     Returns
     -------
@@ -87,11 +143,9 @@ def event_clusters(event: Event, config: ReconConfig | None = None) -> EventClus
     labels = np.zeros(nc * nr, dtype=np.int64)
     if nc * nr == 0:
         return EventClusters(labels=labels, main=0)
+    event, ignored, threshold = event_as_reconstructed(event, config, pedestal_subtracted=pedestal_subtracted)
     image = np.asarray(event.signal).reshape(nr, nc)
-    hit = image > math.floor(config.threshold_adc)
-    if config.bad_pixels:
-        bad = config.bad_pixel_map(event.grid).reshape(event.grid.n_rows, event.grid.n_columns).astype(bool)
-        hit &= ~bad[r0:r0 + nr, c0:c0 + nc]
+    hit = (image > threshold.reshape(nr, nc)) & ~ignored.reshape(nr, nc)
     if not hit.any():
         return EventClusters(labels=labels, main=0)
     rows = np.arange(r0, r0 + nr)

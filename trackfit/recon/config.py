@@ -15,13 +15,12 @@ from __future__ import annotations
 
 import math
 import os
-import tomllib
 from dataclasses import dataclass, fields, replace
 from pathlib import Path
 
 import numpy as np
 
-from .._toml import dumps
+from .._toml import dumps, parse, read_file
 
 __all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV",
            "EMISSION_ESTIMATORS", "TWO_STAGE_SETTINGS"]
@@ -364,19 +363,14 @@ class ReconConfig:
     @classmethod
     def from_toml(cls, text: str, *, source: str = "TOML text") -> ReconConfig:
         """Parse TOML text; keys may be at the top level or in a ``[recon]`` table."""
-        try:
-            values = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as err:
-            raise ValueError(f"{source}: not valid TOML ({err})") from None
-        return cls.from_dict(values, source=source)
+        return cls.from_dict(parse(text, source=source), source=source)
 
     @classmethod
     def read_toml(cls, path) -> ReconConfig:
         """Read a TOML file; a relative ``pixel_map`` is taken relative to the file's folder."""
+        values, source = read_file(path, what="config file")
+        config = cls.from_dict(values, source=source)
         path = Path(path)
-        if not path.exists():
-            raise FileNotFoundError(f"config file '{path}' does not exist")
-        config = cls.from_toml(path.read_text(), source=f"config file '{path}'")
         if config.pixel_map and not Path(config.pixel_map).is_absolute():
             config = replace(config, pixel_map=str(path.parent / config.pixel_map))
         return config

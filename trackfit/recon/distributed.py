@@ -1,53 +1,24 @@
-"""Reconstruct many raw files on a Dask distributed cluster: one task per file.
+"""Reconstruct raw files on a Dask distributed cluster: small files as one task each, large files as event-range
+tasks whose parts the client joins into the table one process would write.
 
-What to use when: :func:`reconstruct_file` (or ``trackfit reconstruct --workers N``) on one machine;
-:func:`reconstruct_on_cluster` (or ``trackfit reconstruct --scheduler ADDRESS``) when a run is spread over many
-files and a Dask cluster can read them (a shared file system: every worker must see the input and output paths).
-Each task streams its file exactly as :func:`reconstruct_file` does, so memory per worker is bounded by the batch
-size. Needs the optional extra: ``pip install "trackfit[dask]"``.
+What to use when: :func:`~trackfit.reconstruct_file` (or ``trackfit reconstruct``) on one machine;
+:func:`reconstruct_on_cluster` (or ``trackfit reconstruct --scheduler ADDRESS``) when a Dask cluster can read the
+files (a shared file system: every worker and the client must see the input and output paths). A file of more than
+``part_events`` events is split into ranges (:mod:`trackfit.recon.parts`): each task streams its range exactly as
+``reconstruct_file`` does, so memory per worker is bounded by the batch size, and writes a part; when the last part
+of a file is written the client joins the parts (the rename of the joined table is the commit point). A worker lost
+mid-task leaves at most a ``.partial`` part (Dask runs the task again elsewhere); a rerun after an interrupted run
+redoes only the missing parts. Needs the optional extra: ``pip install "trackfit[dask]"``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
-from pathlib import Path
 
 from .config import ReconConfig
+from .parts import FileResult, file_result, finish_job, plan_jobs, run_task
 
 __all__ = ["reconstruct_on_cluster", "FileResult"]
-
-
-@dataclass(frozen=True)
-class FileResult:
-    """What one task did: its input and output, rows written and rows fully reconstructed, or the error."""
-
-    raw_path: str
-    out_path: str
-    n_rows: int = 0
-    n_ok: int = 0
-    error: str = ""
-
-    def __str__(self):
-        if self.error:
-            return f"{self.raw_path}: FAILED: {self.error}"
-        share = f"{100.0 * self.n_ok / self.n_rows:.1f} %" if self.n_rows else "-"
-        return f"wrote {self.out_path}: {self.n_rows} events, {self.n_ok} fully reconstructed ({share})"
-
-
-def _task(raw_path: str, out_path: str, config_toml: str, options: dict) -> FileResult:
-    """Runs on a worker: reconstruct one file and report (errors of the input are reported, not raised)."""
-    import numpy as np
-
-    from ..io.table import read_table
-    from .pipeline import reconstruct_file
-
-    try:
-        reconstruct_file(raw_path, out_path, ReconConfig.from_toml(config_toml), progress=False, **options)
-    except (ValueError, OSError, KeyError) as err:
-        return FileResult(raw_path, out_path, error=str(err))
-    status = read_table(out_path, ["status"])["status"]
-    return FileResult(raw_path, out_path, n_rows=len(status), n_ok=int(np.count_nonzero(status == 0)))
 
 
 def _client(client, scheduler):
@@ -64,28 +35,33 @@ def _client(client, scheduler):
 
 
 def reconstruct_on_cluster(jobs: Sequence[tuple], config=None, *, client=None, scheduler: str | None = None,
-                           on_result=None, **options) -> list[FileResult]:
+                           on_result=None, part_events: int | None = None, **options) -> list[FileResult]:
     """Reconstruct raw files as tasks of a Dask distributed cluster.
 
     Parameters
     ----------
     jobs : sequence of (raw_path, out_path)
-        Paths as the workers see them.
+        Paths as the workers and the client see them.
     config : ReconConfig or path of a TOML file, optional
     client : dask.distributed.Client, optional
         An existing client; otherwise one is made for ``scheduler``.
     scheduler : str, optional
         Scheduler address (``tcp://host:8786``), or ``"local"``/None for a local cluster of processes.
     on_result : callable, optional
-        Called with each :class:`FileResult` as its task finishes (progress reporting).
+        Called with each :class:`FileResult` as its file finishes (progress reporting).
+    part_events : int, optional
+        Events per range task. Default: files of more than
+        :data:`~trackfit.recon.parts.DEFAULT_PART_EVENTS` events are split into parts of about that size, and
+        when there are fewer files than workers the largest are split further so that every worker has work.
     **options
-        Passed to :func:`reconstruct_file` (``batch_size``, ``threads``, ``strict``, ``overwrite``, ...).
+        Passed to :func:`~trackfit.reconstruct_file` (``batch_size``, ``threads``, ``strict``, ``overwrite``,
+        ``compression``, ``with_truth``).
 
     Returns
     -------
     list of FileResult
         In the order of ``jobs``; failed files carry their error instead of raising, so one bad file does not
-        stop the others.
+        stop the others (the complete parts of a failed file stay on disk and are reused by a rerun).
     """
     from dask.distributed import as_completed
 
@@ -95,16 +71,42 @@ def reconstruct_on_cluster(jobs: Sequence[tuple], config=None, *, client=None, s
         config = ReconConfig.read_toml(config)
     client, owned = _client(client, scheduler)
     try:
-        futures = [client.submit(_task, str(Path(raw)), str(Path(out)), config.to_toml(), dict(options),
-                                 pure=False, key=f"trackfit-reconstruct-{i}-{Path(raw).name}")
-                   for i, (raw, out) in enumerate(jobs)]
-        results = {}
-        for future in as_completed(futures):
-            result = future.result()
-            results[future.key] = result
+        n_workers = max(1, sum(client.nthreads().values()))
+        planned = plan_jobs(jobs, config, workers=n_workers, part_events=part_events, **options)
+        results: dict[int, FileResult] = {}
+        failed: dict[int, str] = {}
+        left = {k: len(job.tasks) for k, job in enumerate(planned)}
+
+        def finish(k):
+            job = planned[k]
+            try:
+                result = file_result(job, failed.get(k, "")) if k in failed or job.error else finish_job(job)
+            except (ValueError, OSError, KeyError, RuntimeError) as err:
+                result = file_result(job, str(err))
+            results[k] = result
             if on_result is not None:
                 on_result(result)
-        return [results[f.key] for f in futures]
+
+        futures = {}
+        for k, job in enumerate(planned):
+            if job.error or not job.tasks:
+                finish(k)
+                continue
+            for task in job.tasks:
+                name = f"trackfit-reconstruct-{k}-{job.raw_path.name}-{task.start}-{task.stop}"
+                futures[client.submit(run_task, task, pure=False, key=name)] = k
+        for future in as_completed(list(futures)):
+            k = futures[future]
+            try:
+                future.result()
+            except (ValueError, OSError, KeyError, RuntimeError) as err:
+                failed.setdefault(k, str(err))
+            except Exception as err:  # noqa: BLE001 - a task the cluster gave up on (workers lost) and the like
+                failed.setdefault(k, f"{type(err).__name__}: {err}")
+            left[k] -= 1
+            if left[k] == 0:
+                finish(k)
+        return [results[k] for k in range(len(planned))]
     finally:
         if owned:
             cluster = getattr(client, "cluster", None)

@@ -9,6 +9,7 @@ memory is bounded by the batch size, not the file size.
 
 from __future__ import annotations
 
+import collections
 import os
 import queue
 import threading
@@ -29,6 +30,7 @@ from ..io.table import EventTable, TableWriter
 from ._kernels import FLOAT_COLUMNS, INT_COLUMNS, reconstruct_range, subtract_pedestals
 from .config import ReconConfig
 from .estimators import EstimatorRunner
+from .identity import SETTINGS_HASH_KEY, settings_hash
 
 __all__ = ["reconstruct", "reconstruct_file", "content_fingerprint", "TABLE_COLUMNS", "TRUTH_PREFIX",
            "DEFAULT_BATCH_SIZE", "output_name"]
@@ -121,42 +123,63 @@ class _Prepared:
                 "pixel_map_path": str(Path(self.config.pixel_map).resolve()),
                 "pixel_map_fingerprint": self.pixel_map.fingerprint}
 
-    def _split(self, kernel, n, common, threads, pool):
+    def _piece(self, lo, hi, roi, start, signal, bad, subtracted, main_mask, out_f, out_i):
+        if subtracted is not None:  # pixels of different events are disjoint: subtract and reconstruct piece by piece
+            subtract_pedestals(lo, hi, roi, start, signal, bad, self.pedestal, self.grid.n_columns, self.grid.n_rows,
+                               subtracted)
+            signal = subtracted
+        reconstruct_range(lo, hi, roi, start, signal, bad, *self.args, main_mask, out_f, out_i)
+
+    @staticmethod
+    def _split(kernel, n, common, threads, pool):
+        """Run ``kernel(lo, hi, *common)`` over events ``0 <= i < n``, in ``4 * threads`` pieces on the pool."""
         if threads <= 1 or n < 2 * threads or pool is None:
             kernel(0, n, *common)
-        else:
-            edges = np.linspace(0, n, 4 * threads + 1).astype(np.int64)  # small pieces balance the load
-            futures = [pool.submit(kernel, int(a), int(b), *common)
-                       for a, b in zip(edges[:-1], edges[1:], strict=True)]
-            for future in futures:
-                future.result()
+            return []
+        edges = np.linspace(0, n, 4 * threads + 1).astype(np.int64)  # small pieces balance the load
+        return [pool.submit(kernel, int(a), int(b), *common) for a, b in zip(edges[:-1], edges[1:], strict=True)]
 
-    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None, *,
-            estimates: dict | None = None):
-        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute).
+    def submit(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None, *,
+               estimates: dict | None = None):
+        """Start the kernel on a batch; returns a callable that waits and gives the outputs (float64 (N, 11),
+        int64 (N, 5)). With a pool the batch is cut into ``4 * threads`` pieces queued on it, so the threads go on
+        with the next batch while the last pieces of this one finish (no idle thread at batch ends).
 
         ``estimates``, when given, receives the columns of the config's emission estimator
-        (:mod:`trackfit.recon.estimators`; none for ``"two-stage"``).
+        (:mod:`trackfit.recon.estimators`; none for ``"two-stage"``) when the callable is called: the estimator
+        starts from the main-cluster pixels the two-stage kernel marks, once all its pieces are done.
         """
         n = len(batch)
         self.check_pedestals(batch.pedestal_subtracted)
-        signal = batch.signal
-        if not batch.pedestal_subtracted:
-            signal = batch.signal.copy()
-            self._split(subtract_pedestals, n, (batch.roi, batch.start, batch.signal, batch.bad, self.pedestal,
-                                                self.grid.n_columns, self.grid.n_rows, signal), threads, pool)
+        subtracted = None if batch.pedestal_subtracted else batch.signal.copy()
         out_f = np.empty((n, len(FLOAT_COLUMNS)), np.float64)
         out_i = np.empty((n, len(INT_COLUMNS)), np.int64)
         with_estimates = estimates is not None and self.estimates.needs_main_mask
-        main_mask = np.zeros(signal.size if with_estimates else 0, np.uint8)
-        common = (batch.roi, batch.start, signal, batch.bad, *self.args, main_mask, out_f, out_i)
-        self._split(reconstruct_range, n, common, threads, pool)
-        if with_estimates:
-            estimates.update(self.estimates.run(
-                batch, signal, main_mask, out_i[:, INT_COLUMNS.index("status")].copy(),
-                out_f[:, FLOAT_COLUMNS.index("m2_major_mm2")], lambda kernel, args: self._split(
-                    kernel, n, args, threads, pool)))
-        return out_f, out_i
+        main_mask = np.zeros(batch.signal.size if with_estimates else 0, np.uint8)
+        common = (batch.roi, batch.start, batch.signal, batch.bad, subtracted, main_mask, out_f, out_i)
+        futures = self._split(self._piece, n, common, threads, pool)
+
+        def result():
+            for future in futures:
+                future.result()
+            if with_estimates:
+                signal = batch.signal if subtracted is None else subtracted
+
+                def split(kernel, args):
+                    for future in self._split(kernel, n, args, threads, pool):
+                        future.result()
+
+                estimates.update(self.estimates.run(batch, signal, main_mask, out_i[:, INT_COLUMNS.index("status")]
+                                                    .copy(), out_f[:, FLOAT_COLUMNS.index("m2_major_mm2")], split))
+            return out_f, out_i
+
+        return result
+
+    def run(self, batch: EventBatch, threads: int = 1, pool: ThreadPoolExecutor | None = None, *,
+            estimates: dict | None = None):
+        """Kernel outputs (float64 (N, 11), int64 (N, 5)) of a batch (offsets in ``start`` are absolute);
+        ``estimates`` as for :meth:`submit`."""
+        return self.submit(batch, threads, pool, estimates=estimates)()
 
 
 #: dtypes of the columns the emission estimators add (trackfit.recon.estimators, docs/table-format.md)
@@ -320,7 +343,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
     Path
         ``out_path``.
     """
-    from ..io.raw import _prefetched, open_raw
+    from ..io.raw import open_raw
 
     config = _as_config(config)
     raw_path = Path(raw_path)
@@ -337,75 +360,22 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         scale = config.energy_scale(reader.run_info, path=raw_path)
         prepared = _Prepared(config, reader.grid, scale[0], data=f"raw file '{raw_path}'")
         prepared.check_pedestals(reader.pedestal_subtracted)
-        provenance = _base_provenance(config, reader.grid, scale)
-        provenance.update(prepared.provenance())
-        stat = raw_path.stat()
-        provenance.update({
-            "input_name": raw_path.name,
-            "input_path": str(raw_path.resolve()),
-            "input_size_bytes": int(stat.st_size),
-            "input_n_events": len(reader),
-            "input_pedestal_subtracted": bool(reader.pedestal_subtracted),
-            "batch_size": int(batch_size),
-        })
+        provenance = file_provenance(config, reader, raw_path, scale, prepared, batch_size=batch_size,
+                                     with_truth=with_truth, strict=strict)
         update, close_bar = _progress_bar(progress, len(reader), raw_path.name)
         try:
             writer = TableWriter(out_path, provenance=provenance, compression=compression, overwrite=overwrite,
-                                 expected_rows=len(reader))
+                                 expected_rows=len(reader), exact_rows=True)
         except BaseException:
             close_bar()
             raise
-        fingerprint = _Fingerprint()
-
-        # reader thread (read-ahead of two batches): reads, decompresses and checksums the next batches;
-        # writer thread: appends the results in batch order. Only result columns wait for the writer, so about
-        # four batches of raw signal are alive at once, whatever the file size.
-        def read(bounds):
-            batch = reader.read_batch(*bounds, with_truth=with_truth)
-            fingerprint.update(batch)
-            return batch
-
-        n_events = len(reader)
-        bounds = [(a, min(a + int(batch_size), n_events)) for a in range(0, n_events, int(batch_size))]
-        work: queue.Queue = queue.Queue(maxsize=2)
-        failure: list[BaseException] = []
-
-        def write_loop():
-            while True:
-                item = work.get()
-                if item is None:
-                    return
-                if failure:
-                    continue
-                try:
-                    writer.append(item)
-                except BaseException as err:  # noqa: BLE001 - re-raised in the caller
-                    failure.append(err)
-
-        thread = threading.Thread(target=write_loop, name="trackfit-table-writer", daemon=True)
-        thread.start()
-        pool = ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") if threads > 1 else None
         try:
             try:
-                for batch in _prefetched(read, bounds):
-                    if failure:
-                        break
-                    estimates: dict = {}
-                    out_f, out_i = prepared.run(batch, threads, pool, estimates=estimates)
-                    work.put(_columns(batch, out_f, out_i, estimates))
-                    del out_f, out_i, estimates
-                    update(len(batch))
-                    del batch
+                fingerprint = stream_range(reader, 0, len(reader), prepared, writer, batch_size=batch_size,
+                                           threads=threads, update=update,
+                                           truth=reader if with_truth else None)
             finally:
-                work.put(None)
-                thread.join()
-                if pool is not None:
-                    pool.shutdown()
                 close_bar()
-            if failure:
-                raise failure[0]
-            if len(writer) != len(reader):  # pragma: no cover - guards the one-row-per-event promise
-                raise RuntimeError(f"wrote {len(writer)} rows for {len(reader)} events of '{raw_path}'")
             writer.set_provenance(
                 input_fingerprint=fingerprint.hexdigest(),
                 n_malformed_events=len(reader.bad_events),
@@ -415,3 +385,201 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
             writer.abort()
             raise
         return writer.close()
+
+
+def file_provenance(config, reader, raw_path: Path, scale, prepared: _Prepared, *, batch_size: int,
+                    with_truth: bool, strict: bool) -> dict:
+    """Provenance entries of a table made from a raw file (all but the fingerprint and what is known at the end)."""
+    provenance = _base_provenance(config, reader.grid, scale)
+    provenance.update(prepared.provenance())
+    provenance[SETTINGS_HASH_KEY] = settings_hash(
+        config, pixel_map_fingerprint=None if prepared.pixel_map is None else prepared.pixel_map.fingerprint,
+        energy_scale=scale, with_truth=with_truth, strict=strict)
+    stat = raw_path.stat()
+    provenance.update({
+        "input_name": raw_path.name,
+        "input_path": str(raw_path.resolve()),
+        "input_size_bytes": int(stat.st_size),
+        "input_n_events": len(reader),
+        "input_pedestal_subtracted": bool(reader.pedestal_subtracted),
+        "batch_size": int(batch_size),
+    })
+    return provenance
+
+
+def truth_columns(reader) -> list[tuple[str, object]]:
+    """``(column name, HDF5 dataset)`` of every ``/truth`` dataset of a raw file that a table copies: the 1-D
+    numeric ones, named ``truth_<name>``, in name order (the order of :func:`reconstruct`'s truth columns)."""
+    out = []
+    for name in reader.truth_names:
+        dataset = reader.truth_dataset(name)
+        if dataset.ndim == 1 and dataset.dtype.kind in "biuf":
+            out.append((TRUTH_PREFIX + name, dataset))
+    return out
+
+
+def batch_bounds(start: int, stop: int, batch_size: int) -> list[tuple[int, int]]:
+    """Batches of events ``start <= i < stop`` for streaming: ``batch_size`` events each, except the first ones,
+    which grow from an eighth of it (the kernel starts as soon as a small batch is read), and the last ones, which
+    shrink to a quarter (little is left to write after the kernel's last batch). Results do not depend on it."""
+    batch_size = max(1, int(batch_size))
+    n = stop - start
+    if n <= 0:
+        return []
+    sizes = []
+    size = max(1, batch_size // 8)
+    left = n
+    while left > 0:
+        step = min(size, left)
+        sizes.append(step)
+        left -= step
+        size = min(2 * size, batch_size)
+    tail = max(1, batch_size // 4)
+    if len(sizes) > 3 and sizes[-1] > tail:  # split the last full batch so that the pipeline drains quickly
+        last = sizes.pop()
+        while last > tail:
+            sizes.append(last - last // 2)
+            last //= 2
+        sizes.append(last)
+    edges = np.concatenate([[0], np.cumsum(sizes)]) + start
+    return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+
+
+def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: TableWriter, *, batch_size: int,
+                 threads: int, update=None, truth=None) -> _Fingerprint:
+    """Reconstruct events ``start <= i < stop`` of an open raw file and append their rows to ``writer``.
+
+    A reader thread reads (and decompresses) the next batches and feeds the fingerprint; the kernel runs on the
+    current batch in ``threads`` threads; a writer thread appends the previous results in batch order. About four
+    batches of raw signal are alive at once, whatever the range.
+
+    Parameters
+    ----------
+    truth : RawEventReader, optional
+        Copy its ``/truth`` datasets in whole (HDF5 copies, made by the writer thread once every batch is read); only
+        for the whole file (``start == 0``, ``stop == len(reader)``).
+
+    Returns
+    -------
+    RawFingerprint
+        Of the events of the range (combine the fingerprints of consecutive ranges with
+        :meth:`~trackfit.io.fingerprint.RawFingerprint.combine`).
+    """
+    from ..io.raw import _prefetched
+
+    if truth is not None and (start, stop) != (0, len(truth)):
+        raise ValueError(f"truth columns are copied whole: only for the whole file (events 0:{len(truth)}), "
+                         f"not {start}:{stop}")
+    update = update or (lambda n: None)
+    fingerprint = _Fingerprint()
+    copies: list = []  # (name, dataset) of the truth columns still to copy, looked up once reading has ended
+    lookup = [truth] if truth is not None else []
+
+    # signal buffers reused from batch to batch (as many as batches are in flight: read, waiting, in the kernel)
+    free: queue.Queue = queue.Queue()
+
+    def take_buffer(n_pixels):
+        try:
+            buffer = free.get_nowait()
+        except queue.Empty:
+            buffer = None
+        if buffer is None or buffer.size < n_pixels:
+            buffer = np.empty(max(n_pixels, 1), np.int16)
+        return buffer
+
+    bounds = batch_bounds(start, stop, batch_size)
+    # h5py serialises all its calls with one lock: the truth copies wait until every batch is read, so they never
+    # hold up a read the kernel waits for (the batches read ahead keep the kernel busy meanwhile)
+    read_done = threading.Event()
+    if not bounds:
+        read_done.set()
+
+    def read(item):
+        taken = []
+
+        def buffer(n_pixels):
+            taken.append(take_buffer(n_pixels))
+            return taken[-1]
+
+        batch = reader.read_batch(*item, with_truth=False, buffer=buffer)
+        fingerprint.update(batch)
+        if item == bounds[-1]:
+            read_done.set()
+        return batch, (taken[0] if taken else None)
+
+    work: queue.Queue = queue.Queue(maxsize=2)
+    failure: list[BaseException] = []
+
+    def copy_one():
+        try:
+            if lookup:
+                copies.extend(truth_columns(lookup.pop()))
+            elif copies:
+                writer.copy_column(*copies.pop(0))
+        except BaseException as err:  # noqa: BLE001 - re-raised in the caller
+            failure.append(err)
+
+    def write_loop():
+        while True:
+            pending = bool(lookup or copies) and not failure
+            try:
+                if pending and read_done.is_set():
+                    item = work.get_nowait()  # rows first, a truth column when none wait
+                else:  # wake up now and then to see whether the reading has ended
+                    item = work.get(timeout=0.005 if pending else None)
+            except queue.Empty:
+                if pending and read_done.is_set():
+                    copy_one()
+                continue
+            if item is None:
+                break
+            if failure:
+                continue
+            try:
+                writer.append(item)
+            except BaseException as err:  # noqa: BLE001 - re-raised in the caller
+                failure.append(err)
+        while (lookup or copies) and not failure:
+            copy_one()
+
+    thread = threading.Thread(target=write_loop, name="trackfit-table-writer", daemon=True)
+    thread.start()
+    pool = ThreadPoolExecutor(threads, thread_name_prefix="trackfit-recon") if threads > 1 else None
+    n_written = len(writer)
+    in_kernel: collections.deque = collections.deque()  # batches whose pieces are queued on the pool
+    try:
+        def finish_oldest():
+            batch, buffer, result, estimates = in_kernel.popleft()
+            out_f, out_i = result()
+            if buffer is not None:
+                free.put(buffer)
+            work.put(_columns(batch, out_f, out_i, estimates))
+            update(len(batch))
+
+        ahead = 1 if pool is not None else 0
+        for batch, buffer in _prefetched(read, bounds):
+            if failure:
+                break
+            estimates: dict = {}
+            in_kernel.append((batch, buffer, prepared.submit(batch, threads, pool, estimates=estimates), estimates))
+            del estimates
+            del batch, buffer
+            while len(in_kernel) > ahead:
+                finish_oldest()
+        while in_kernel and not failure:
+            finish_oldest()
+    finally:
+        for _, _, result, _ in in_kernel:  # a failure: let queued pieces end before their arrays go
+            try:
+                result()
+            except BaseException:  # noqa: BLE001, S110 - the first failure is the one reported
+                pass
+        work.put(None)
+        thread.join()
+        if pool is not None:
+            pool.shutdown()
+    if failure:
+        raise failure[0]
+    if len(writer) - n_written != stop - start:  # pragma: no cover - guards the one-row-per-event promise
+        raise RuntimeError(f"wrote {len(writer) - n_written} rows for events {start}:{stop} of '{reader.path}'")
+    return fingerprint

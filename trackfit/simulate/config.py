@@ -9,7 +9,6 @@ Presets are TOML files shipped in ``trackfit/presets/``: :func:`list_presets`, :
 
 import dataclasses
 import math
-import tomllib
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -463,11 +462,7 @@ class SimConfig:
 
     @classmethod
     def from_toml(cls, text: str) -> "SimConfig":
-        try:
-            data = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as err:
-            raise ConfigError(f"not valid TOML: {err}") from None
-        return cls.from_dict(data)
+        return cls.from_dict(_toml.parse(text, source="simulation config", error=ConfigError))
 
     @classmethod
     def load(cls, path) -> "SimConfig":

@@ -30,7 +30,6 @@ import dataclasses
 import datetime as _dt
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -159,10 +158,7 @@ class LabPixelConfig:
 
     @classmethod
     def from_toml(cls, text: str) -> LabPixelConfig:
-        try:
-            return cls.from_dict(tomllib.loads(text))
-        except tomllib.TOMLDecodeError as err:
-            raise ConfigError(f"not valid TOML: {err}") from None
+        return cls.from_dict(_toml.parse(text, source="lab-pixel config", error=ConfigError))
 
     @classmethod
     def load(cls, path) -> LabPixelConfig:
