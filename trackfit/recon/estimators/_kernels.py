@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from ..._jit import jit
-from .._kernels import DEGENERACY_TOLERANCE
+from .._kernels import DEGENERACY_TOLERANCE, _moments_about, _principal_axis
 from ..status import Status
 
 __all__ = ["adaptive_range", "interpolate_rule", "ADAPTIVE_FLOAT_COLUMNS", "ADAPTIVE_INT_COLUMNS"]
@@ -119,26 +119,13 @@ def adaptive_range(lo, hi, roi, start, signal, main_mask, status_in, pitch_mm, r
             sy += pq[j] * py[j]
         bx = sx / qsum
         by = sy / qsum
-        mxx = 0.0
-        myy = 0.0
-        mxy = 0.0
-        for j in range(n):
-            dx = px[j] - bx
-            dy = py[j] - by
-            mxx += pq[j] * dx * dx
-            myy += pq[j] * dy * dy
-            mxy += pq[j] * dx * dy
+        mxx, myy, mxy = _moments_about(px, py, pq, n, bx, by)
         mxx /= qsum
         myy /= qsum
         mxy /= qsum
-        half_trace = 0.5 * (mxx + myy)
-        half_diff = math.sqrt((0.5 * (mxx - myy)) ** 2 + mxy * mxy)
-        if half_diff <= _TOL * half_trace:
+        axis, m2l, _, half_diff = _principal_axis(mxx, myy, mxy)
+        if half_diff <= _TOL * 0.5 * (mxx + myy):
             continue
-        axis = 0.5 * math.atan2(2.0 * mxy, mxx - myy)
-        if axis <= -0.5 * _PI:
-            axis += _PI
-        m2l = half_trace + half_diff
         ca = math.cos(axis)
         sa = math.sin(axis)
         # ---- head score: skewness along the axis plus the charge-density asymmetry of the two halves
