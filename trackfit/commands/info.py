@@ -15,7 +15,7 @@ from pathlib import Path
 
 from ..cli import CommandError
 from ..io.kinds import KINDS as _KNOWN
-from ..io.kinds import plain_attribute
+from ..io.kinds import open_file
 
 #: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
 KINDS = tuple(_KNOWN)
@@ -41,17 +41,9 @@ def register(subparsers):
 
 def file_kind(path) -> str:
     """The ``trackfit_format`` root attribute of a file; errors name the file and say what was expected."""
-    import h5py
-
-    path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"file '{path}' does not exist")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as err:
-        raise CommandError(f"'{path}' is not a readable HDF5 file ({err})") from None
-    with f:
-        kind = plain_attribute(f.attrs.get("trackfit_format"))
+    f, attrs = open_file(path, what="file", error=lambda p, message: CommandError(f"'{p}' is {message}"))
+    f.close()
+    kind = attrs.get("trackfit_format")
     if kind not in KINDS:
         found = "no trackfit_format attribute" if kind is None else f"trackfit_format {kind!r}"
         raise CommandError(f"'{path}' is not a trackfit file this version knows: expected a root attribute "

@@ -13,7 +13,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-__all__ = ["KINDS", "open_kind", "plain_attribute", "wrong_kind_hint"]
+__all__ = ["KINDS", "open_file", "open_kind", "plain_attribute", "wrong_kind_hint"]
 
 #: ``trackfit_format`` value -> (what the file is, what to do with it)
 KINDS: dict[str, tuple[str, str]] = {
@@ -49,6 +49,26 @@ def wrong_kind_hint(found, expected: str = "") -> str:
     return f": this is {what}; {_USE_INSTEAD.get((found, expected), use)}"
 
 
+def open_file(path, *, what: str, error) -> tuple[h5py.File, dict]:
+    """Open a file for reading as HDF5; returns it (the caller closes it) and its root attributes as plain values.
+
+    Raises ``FileNotFoundError("<what> '<path>' does not exist")``, or ``error(path, "not a readable HDF5 file
+    (...)")`` (see :func:`open_kind`).
+    """
+    path = Path(path)
+    if not path.exists():
+        raise FileNotFoundError(f"{what} '{path}' does not exist")
+    try:
+        f = h5py.File(path, "r")
+    except OSError as err:
+        raise error(path, f"not a readable HDF5 file ({err})") from None
+    try:
+        return f, {k: plain_attribute(v) for k, v in f.attrs.items()}
+    except BaseException:
+        f.close()
+        raise
+
+
 def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
     """Open a trackfit file for reading and check that it is of the expected kind.
 
@@ -59,7 +79,7 @@ def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
         The expected ``trackfit_format`` (a key of :data:`KINDS`).
     what : str
         How errors name the file (``"pixel map"`` gives ``pixel map '<path>' does not exist``).
-    error : callable
+    error : type
         The exception class of the reader's format (a ``ValueError`` taking ``(path, message, dataset=None)``),
         raised for a file that is not HDF5, or of another kind (``dataset="/"``).
 
@@ -73,20 +93,10 @@ def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
     FileNotFoundError
         ``"<what> '<path>' does not exist"``.
     """
-    path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"{what} '{path}' does not exist")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as err:
-        raise error(path, f"not a readable HDF5 file ({err})") from None
-    try:
-        attrs = {k: plain_attribute(v) for k, v in f.attrs.items()}
-        found = attrs.get("trackfit_format")
-        if found != kind:
-            hint = wrong_kind_hint(found, kind)
-            raise error(path, f"attribute 'trackfit_format' must be '{kind}' (got {found!r}){hint}", dataset="/")
-    except BaseException:
+    f, attrs = open_file(path, what=what, error=error)
+    found = attrs.get("trackfit_format")
+    if found != kind:
         f.close()
-        raise
+        hint = wrong_kind_hint(found, kind)
+        raise error(path, f"attribute 'trackfit_format' must be '{kind}' (got {found!r}){hint}", dataset="/")
     return f, attrs
