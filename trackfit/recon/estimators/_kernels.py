@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from ..._jit import jit
-from .._kernels import DEGENERACY_TOLERANCE, _moments_about, _principal_axis
+from .._kernels import DEGENERACY_TOLERANCE, _moments_about, _principal_axis, _wrap_pi
 from ..status import Status
 
 __all__ = ["adaptive_range", "interpolate_rule", "ADAPTIVE_FLOAT_COLUMNS", "ADAPTIVE_INT_COLUMNS"]
@@ -180,10 +180,7 @@ def adaptive_range(lo, hi, roi, start, signal, main_mask, status_in, pitch_mm, r
                 cx += pq[j] * px[j]
                 cy += pq[j] * py[j]
         if cq <= 0.0:
-            emission = axis + (_PI if side > 0.0 else 0.0)
-            if emission > _PI:
-                emission -= 2.0 * _PI
-            out_f[i, 0] = emission
+            out_f[i, 0] = _wrap_pi(axis + (_PI if side > 0.0 else 0.0))
             out_f[i, 1] = bx + xr
             out_f[i, 2] = by + yr
             out_i[i, 0] = _NO_CONV
@@ -215,11 +212,7 @@ def adaptive_range(lo, hi, roi, start, signal, main_mask, status_in, pitch_mm, r
                 status = 0
         if math.cos(emission) * (bx - cx) + math.sin(emission) * (by - cy) < 0.0:
             emission += _PI
-        if emission > _PI:
-            emission -= 2.0 * _PI
-        elif emission <= -_PI:
-            emission += 2.0 * _PI
-        out_f[i, 0] = emission
+        out_f[i, 0] = _wrap_pi(emission)
         out_f[i, 1] = cx + xr
         out_f[i, 2] = cy + yr
         out_i[i, 0] = status
