@@ -60,8 +60,7 @@ def run(args) -> int:
         raise CommandError(f"'{args.file}' holds raw ADC values (pedestal_subtracted = false): give the pixel map "
                            "with its pedestals (--pixel-map MAP.h5, measured with trackfit pixel-map)")
     # the pixels as the reconstruction sees them: pedestals subtracted, the map's bad pixels ignored
-    raw_event = event
-    event, ignored, _ = event_as_reconstructed(raw_event, config, pedestal_subtracted=subtracted)
+    event, ignored, pixel_thresholds = event_as_reconstructed(event, config, pedestal_subtracted=subtracted)
     result, provenance, outside, threshold = None, None, None, args.threshold_adc
     roi_line = f"event {event.index} (trigger {event.trigger_id}): ROI {int(event.roi[2])} x {int(event.roi[3])} = " \
                f"{len(event.signal)} pixels" + ("" if subtracted else ", pedestals of the pixel map subtracted") \
@@ -71,11 +70,11 @@ def run(args) -> int:
     else:
         from ..analysis.estimates import with_estimate
         from ..recon import reconstruct
-        from ..recon.clusters import event_clusters
+        from ..recon.clusters import label_clusters
 
         table = with_estimate(reconstruct(batch, config, run_info=run_info))  # the settings' emission estimate
         result, provenance = table.row(0), table.provenance
-        clusters = event_clusters(raw_event, config, pedestal_subtracted=subtracted)
+        clusters = label_clusters(event, ignored, pixel_thresholds)
         outside = clusters.outside_main
         threshold = config.threshold_adc if threshold is None else threshold
         cut = (f"threshold_noise_rms = {config.threshold_noise_rms:g} x each pixel's noise"

@@ -20,7 +20,7 @@ from scipy import ndimage
 from ..events import Event
 from .config import ReconConfig
 
-__all__ = ["EventClusters", "event_clusters", "event_as_reconstructed"]
+__all__ = ["EventClusters", "event_clusters", "event_as_reconstructed", "label_clusters"]
 
 #: 6-neighbour structure in axial coordinates (q, r): neighbours (q +- 1, r), (q, r +- 1), (q - 1, r + 1),
 #: (q + 1, r - 1); indexed [dr + 1, dq + 1]
@@ -138,12 +138,16 @@ def event_clusters(event: Event, config: ReconConfig | None = None, *,
     >>> clusters.n_clusters, int(clusters.in_main.sum()), int(clusters.outside_main.sum())
     (2, 1, 2)
     """
-    config = config or ReconConfig()
+    return label_clusters(*event_as_reconstructed(event, config, pedestal_subtracted=pedestal_subtracted))
+
+
+def label_clusters(event: Event, ignored: np.ndarray, threshold: np.ndarray) -> EventClusters:
+    """:func:`event_clusters` of an event already as the reconstruction sees it (the three outputs of
+    :func:`event_as_reconstructed`), for a caller that also needs them."""
     c0, r0, nc, nr = (int(v) for v in event.roi)
     labels = np.zeros(nc * nr, dtype=np.int64)
     if nc * nr == 0:
         return EventClusters(labels=labels, main=0)
-    event, ignored, threshold = event_as_reconstructed(event, config, pedestal_subtracted=pedestal_subtracted)
     image = np.asarray(event.signal).reshape(nr, nc)
     hit = (image > threshold.reshape(nr, nc)) & ~ignored.reshape(nr, nc)
     if not hit.any():
