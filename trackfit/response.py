@@ -266,7 +266,7 @@ class DetectorResponse:
 
     # ------------------------------------------------------------------------------------------ files
     def save(self, path, *, overwrite: bool = False) -> Path:
-        """Write the response file (``docs/response-format.md``); written as ``<path>.partial`` and renamed.
+        """Write the response file (``docs/response-format.md``); written as a partial file and renamed.
 
         Raises
         ------

@@ -37,7 +37,7 @@ def test_mismatches_and_bad_values_are_named(tmp_path, make_batch):
         with RawEventWriter(tmp_path / "a.h5", batch.grid, pedestal_subtracted=True) as writer:
             writer.append(EventBatch(roi=batch.roi, start=batch.start, signal=batch.signal, grid=batch.grid,
                                      pedestal_subtracted=False))
-    assert not (tmp_path / "a.h5").exists() and not (tmp_path / "a.h5.partial").exists()
+    assert not (tmp_path / "a.h5").exists() and not list(tmp_path.glob("a.h5*"))
     with pytest.raises(ValueError, match=r"'trigger_mode' must be one of \('self', 'random'\)"):
         RawEventWriter(tmp_path / "b.h5", batch.grid, trigger_mode="cosmic")
     with pytest.raises(EventBatchError, match="'pedestal_subtracted' must be True or False"):

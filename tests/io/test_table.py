@@ -111,7 +111,8 @@ def test_write_read_round_trip(tmp_path, compression):
 def test_streaming_writer_appends_and_renames(tmp_path):
     path = tmp_path / "stream.h5"
     with TableWriter(path, provenance={"a": 1}, chunk_rows=7) as writer:
-        assert (tmp_path / "stream.h5.partial").exists() and not path.exists()
+        assert writer.partial_path.exists() and not path.exists()
+        assert writer.partial_path.name.startswith("stream.h5.") and writer.partial_path.suffix == ".partial"
         writer.append(_columns(10, 1))
         writer.append(EventTable(_columns(5, 2)))
         writer.append({k: v[:0] for k, v in _columns(3).items()})
@@ -122,7 +123,7 @@ def test_streaming_writer_appends_and_renames(tmp_path):
             writer.append({**_columns(2), "status": np.array([1.5, 2.0])})
     table = read_table(path)
     assert len(table) == 15 and table.provenance["fingerprint"] == "abc" and table.provenance["a"] == 1
-    assert not (tmp_path / "stream.h5.partial").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["stream.h5"]
     with pytest.raises(FileExistsError):
         TableWriter(path)
 
@@ -132,7 +133,7 @@ def test_aborted_writer_leaves_nothing(tmp_path):
     with pytest.raises(RuntimeError), TableWriter(path) as writer:
         writer.append(_columns(4))
         raise RuntimeError("boom")
-    assert not path.exists() and not (tmp_path / "crash.h5.partial").exists()
+    assert list(tmp_path.iterdir()) == []
 
 
 def _corrupt(path, action):

@@ -40,14 +40,14 @@ def test_resume_redoes_only_what_is_missing_or_stale(campaign, capsys):
     assert first["status_counts"]["rows"] == 300 and first["seconds"] > 0 and first["events_per_s"] > 0
     assert first["settings_hash"].startswith("sha256:")
     capsys.readouterr()
-    # an interrupted campaign: run1's output never committed (a .partial left), run2's input rewritten since
+    # an interrupted campaign: run1's output never committed (a partial file left), run2's input rewritten since
     (out_dir / "run1_events.h5").rename(out_dir / "run1_events.h5.partial")
     write_raw(raws[2], toy_tracks(500, 99, roi_shape=(16, 16)), overwrite=True)  # same size, other events
     before = (out_dir / "run0_events.h5").stat().st_mtime_ns
     assert _run(raws, out_dir, "--resume") == 0
     text = capsys.readouterr().out
     assert f"skipped {raws[0]}: complete, made from the same input fingerprint" in text
-    assert f"to do {raws[1]}: no output yet (an interrupted run left a .partial file)" in text
+    assert f"to do {raws[1]}: no output yet (an interrupted run left a partial file)" in text
     assert f"to do {raws[2]}: the input's content changed" in text or f"to do {raws[2]}: the input changed" in text
     assert "1 skipped" in text and "2 reconstructed" in text
     assert (out_dir / "run0_events.h5").stat().st_mtime_ns == before  # not touched

@@ -59,7 +59,7 @@ def make_provenance(*, runs=(), cuts=None, weights="none", **extra) -> dict:
 
 
 class _CalibrationWriter(PartialFileWriter):
-    """The file of :meth:`Calibration.save`: written as ``<path>.partial`` and renamed when complete."""
+    """The file of :meth:`Calibration.save`: written as a partial file and renamed when complete."""
 
     format_name = CALIBRATION_FORMAT
     format_version = CALIBRATION_FORMAT_VERSION

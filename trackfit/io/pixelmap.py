@@ -308,7 +308,7 @@ class _PixelMapWriter(PartialFileWriter):
 
 
 def write_pixel_map(path, pixel_map: PixelMap, *, overwrite: bool = False, created_utc: str | None = None) -> Path:
-    """Write a pixel map file (written under ``<path>.partial`` and renamed when complete).
+    """Write a pixel map file (written as a partial file and renamed when complete).
 
     Returns
     -------

@@ -89,7 +89,7 @@ class RawEventWriter(PartialFileWriter):
     Parameters
     ----------
     path : str or Path
-        Final file name. Data go to ``<path>.partial`` and are renamed to ``path`` by :meth:`close`.
+        Final file name. Data go to a partial file of this writer, renamed to ``path`` by :meth:`close`.
     grid : HexGrid
         The chip geometry; every appended batch must use it.
     compression : str
@@ -210,6 +210,7 @@ class RawEventWriter(PartialFileWriter):
             append_rows(self._file["truth"][key], batch.truth[key])
         self._n_events += len(batch)
         self._n_signal += len(batch.signal)
+        self.check_writes()
 
     def add_array(self, name: str, values, **attrs) -> None:
         """Store an extra dataset outside the groups the format defines (e.g. ``simulation/pixel_gain``).

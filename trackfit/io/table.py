@@ -7,8 +7,8 @@ What to use when
   :meth:`~EventTable.select` for cuts and :meth:`~EventTable.to_pandas`.
 * :func:`write_table` - write a table held in memory.
 * :class:`TableWriter` - append column batches to a new file while streaming (``reconstruct_file`` uses it);
-  data go to ``<path>.partial`` and are renamed when the writer closes, so a crash never leaves a file that
-  looks complete.
+  data go to a partial file (``<path>.<host>-<pid>-<token>.partial``) renamed when the writer closes, so a
+  crash never leaves a file that looks complete.
 * :func:`read_table` - read all or some columns (and optionally a row range) of a table file.
 """
 
@@ -394,7 +394,7 @@ class TableWriter(PartialFileWriter):
     Parameters
     ----------
     path : str or Path
-        Final file name; data go to ``<path>.partial``, renamed to ``path`` by :meth:`close`.
+        Final file name; data go to a partial file of this writer, renamed to ``path`` by :meth:`close`.
     provenance : dict, optional
         Entries of the ``/provenance`` group (more can be added with :meth:`set_provenance` before closing).
     compression : str
@@ -531,6 +531,7 @@ class TableWriter(PartialFileWriter):
             space.select_hyperslab((self._n,), (n_new,))
             ds.id.write(memory, space, np.ascontiguousarray(values))
         self._n = end
+        self.check_writes()
 
     def copy_column(self, name: str, source: h5py.Dataset, *, description: tuple[str, str] | None = None) -> None:
         """Copy a whole 1-D dataset of another HDF5 file in as column ``name``, placed after the appended columns.
@@ -559,6 +560,7 @@ class TableWriter(PartialFileWriter):
             events[name].attrs["unit"], events[name].attrs["description"] = description
         self._copied.append(name)
         self._write_column_order()
+        self.check_writes()
 
     def set_provenance(self, **values) -> None:
         """Add or replace entries of ``/provenance`` (e.g. the input fingerprint, known only at the end)."""

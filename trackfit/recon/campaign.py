@@ -14,14 +14,13 @@ atomic rename) as files finish, so an interrupted campaign can be inspected. The
 from __future__ import annotations
 
 import json
-import os
 from dataclasses import dataclass
 from pathlib import Path
 
 import h5py
 import numpy as np
 
-from ..io._partial import now_utc
+from ..io._partial import now_utc, partial_files, write_text_file
 from .identity import SETTINGS_HASH_KEY, compatible_version
 
 __all__ = ["SUMMARY_NAME", "SUMMARY_LAYOUT", "ResumeDecision", "resume_decision", "CampaignSummary",
@@ -70,11 +69,10 @@ def resume_decision(raw_path, out_path, *, settings: str, n_events: int) -> Resu
     if not out_path.exists():
         from .parts import parts_folder
 
-        partial = out_path.with_name(out_path.name + ".partial")
         folder = parts_folder(out_path)
         n_parts = len(list(folder.glob("events_*.h5"))) if folder.is_dir() else 0
-        return ResumeDecision(False, "no output yet" + (" (an interrupted run left a .partial file)"
-                                                        if partial.exists() else "")
+        return ResumeDecision(False, "no output yet" + (" (an interrupted run left a partial file)"
+                                                        if partial_files(out_path) else "")
                               + (f" ({n_parts} complete part(s) of an interrupted run are kept if they match)"
                                  if n_parts else ""))
     try:
@@ -187,6 +185,4 @@ class CampaignSummary:
 
     def write(self) -> None:
         self.data["updated_utc"] = now_utc()
-        temporary = self.path.with_name(self.path.name + ".partial")
-        temporary.write_text(json.dumps(self.data, indent=2) + "\n")
-        os.replace(temporary, self.path)
+        write_text_file(self.path, json.dumps(self.data, indent=2) + "\n")

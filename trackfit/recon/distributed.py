@@ -7,7 +7,7 @@ files (a shared file system: every worker and the client must see the input and 
 ``part_events`` events is split into ranges (:mod:`trackfit.recon.parts`): each task streams its range exactly as
 ``reconstruct_file`` does, so memory per worker is bounded by the batch size, and writes a part; when the last part
 of a file is written the client joins the parts (the rename of the joined table is the commit point). A worker lost
-mid-task leaves at most a ``.partial`` part (Dask runs the task again elsewhere); a rerun after an interrupted run
+mid-task leaves at most a partial file of a part (Dask runs the task again elsewhere); a rerun after an interrupted run
 redoes only the missing parts. Needs the optional extra: ``pip install "trackfit[dask]"``.
 """
 

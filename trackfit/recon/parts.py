@@ -11,16 +11,16 @@ How it works
 * :func:`plan_file` splits the events ``0 <= i < N`` of a raw file into ``ceil(N / part_events)`` ranges of equal
   size (to one event), written to ``<out>.parts/ranges.json`` so that a rerun finds the same ranges. Each range
   becomes a *part*: an event-table file of its rows in ``<out>.parts/`` (``events_<first>-<stop>.h5``), written as
-  ``.partial`` and renamed when complete, like every trackfit file. Its provenance holds the range, the settings
+  a partial file and renamed when complete, like every trackfit file. Its provenance holds the range, the settings
   hash, the input's identity (path, size, modification time, events) and the CRC-32 values of the range (with
   their byte counts).
-* :func:`join_parts` copies the parts in event order into ``<out>.partial``, copies the raw file's simulation
-  truth (HDF5 copies, as ``reconstruct_file`` does), combines the range fingerprints into the fingerprint of the
-  whole file (:meth:`~trackfit.io.fingerprint.RawFingerprint.combine`: the same value one pass gives), and renames
-  the file to ``<out>``: the rename is the commit point. Then it deletes the parts.
+* :func:`join_parts` copies the parts in event order into a partial file of ``<out>``, copies the raw file's
+  simulation truth (HDF5 copies, as ``reconstruct_file`` does), combines the range fingerprints into the fingerprint
+  of the whole file (:meth:`~trackfit.io.fingerprint.RawFingerprint.combine`: the same value one pass gives), and
+  renames the file to ``<out>``: the rename is the commit point. Then it deletes the parts.
 * A part that exists complete and was made from the same input identity, settings hash, trackfit version and
   range is reused; only missing parts are reconstructed again (after a killed worker, a lost cluster node or an
-  interrupted campaign). A killed worker leaves at most a ``.partial`` part, never a complete-looking table.
+  interrupted campaign). A killed worker leaves at most a partial file, never a complete-looking table.
 
 The joined table equals, column by column, the table of :func:`~trackfit.reconstruct_file` on the same file; its
 provenance records the same input fingerprint and settings (plus ``n_parts``).
@@ -40,7 +40,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from ..io._partial import now_utc
+from ..io._partial import now_utc, write_text_file
 from ..io.compression import DEFAULT_COMPRESSION
 from ..io.fingerprint import RawFingerprint
 from ..io.table import TableWriter
@@ -120,7 +120,8 @@ def part_name(start: int, stop: int) -> str:
     return f"events_{start:012d}-{stop:012d}.h5"
 
 
-_PART_NAME = re.compile(r"events_(\d{12})-(\d{12})\.h5(?:\.partial)?")
+#: a part, complete or partial (``<part>.<host>-<pid>-<token>.partial``, or ``<part>.partial`` of older versions)
+_PART_NAME = re.compile(r"events_(\d{12})-(\d{12})\.h5(?:(?:\.[A-Za-z0-9_]+-\d+-[0-9a-f]+)?\.partial)?")
 
 
 def part_ranges(n_events: int, part_events: int) -> list[tuple[int, int]]:
@@ -307,10 +308,8 @@ def plan_file(raw_path, out_path, config=None, *, part_events: int | None = DEFA
     ranges = resumed or part_ranges(n_events, int(part_events))
     folder.mkdir(parents=True, exist_ok=True)
     manifest = folder / PLAN_NAME
-    temporary = folder / (PLAN_NAME + ".partial")
-    temporary.write_text(json.dumps({"raw_path": str(raw_path.resolve()), "n_events": n_events,
-                                     "ranges": [list(r) for r in ranges]}) + "\n")
-    os.replace(temporary, manifest)
+    write_text_file(manifest, json.dumps({"raw_path": str(raw_path.resolve()), "n_events": n_events,
+                                          "ranges": [list(r) for r in ranges]}) + "\n")
     tasks, reused = [], 0
     for a, b in ranges:
         task = RangeTask(str(raw_path), str(folder / part_name(a, b)), a, b, False, toml, options, digest, identity)

@@ -312,7 +312,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
     """Reconstruct a raw event file into an event-table file, streaming with bounded memory.
 
     Reading (and decompressing) the next batch, the kernel on the current batch and writing the previous results
-    run at the same time in different threads. The table is written to ``<out_path>.partial`` and renamed when
+    run at the same time in different threads. The table is written to a partial file of its own and renamed when
     complete, so a crash never leaves a file that looks whole.
 
     Parameters
