@@ -127,6 +127,13 @@ def main(argv=None) -> int:
         message = err.args[0] if isinstance(err, KeyError) and err.args else err
         print(f"trackfit {args.command}: error: {message}", file=sys.stderr)
         return 2
+    except OSError as err:
+        from .io.errors import FileWriteError
+
+        if not isinstance(err, FileWriteError):  # a writer that could not write: full disk, permission denied, ...
+            raise
+        print(f"trackfit {args.command}: error: {err}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print(f"trackfit {args.command}: interrupted", file=sys.stderr)
         return 130

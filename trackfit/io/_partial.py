@@ -156,19 +156,23 @@ class _GuardedFile:
             done = 0
             try:
                 while done < len(view):
-                    done += os.pwrite(self.fd, view[done:], self.position + done)
-            except OSError as err:
-                self.failure = err
+                    done += self._write_at(view[done:], self.position + done)
+            except Exception as err:  # noqa: BLE001 - nothing may reach HDF5 (see the module docstring)
+                self.failure = err if isinstance(err, OSError) else OSError(errno.EIO, f"{type(err).__name__}: {err}")
         self.position += len(view)
         return len(view)
+
+    def _write_at(self, view, offset: int) -> int:
+        """One positioned write; returns the bytes written (the seam the fault tests replace)."""
+        return os.pwrite(self.fd, view, offset)
 
     def truncate(self, size=None):
         size = self.position if size is None else int(size)
         if self.failure is None:
             try:
                 os.ftruncate(self.fd, size)
-            except OSError as err:
-                self.failure = err
+            except Exception as err:  # noqa: BLE001 - nothing may reach HDF5
+                self.failure = err if isinstance(err, OSError) else OSError(errno.EIO, f"{type(err).__name__}: {err}")
         return size
 
     def flush(self):
@@ -381,15 +385,14 @@ def write_text_file(path, text: str, *, overwrite: bool = True) -> Path:
         fd = _open_exclusive(partial)
     except OSError as err:
         raise _write_error(path, err) from None
+    io = _GuardedFile(fd)
     try:
         try:
-            data = text.encode()
-            view = memoryview(data)
-            done = 0
-            while done < len(view):
-                done += os.write(fd, view[done:])
+            io.write(text.encode())
         finally:
-            os.close(fd)
+            io.close()
+        if io.failure is not None:
+            raise _write_error(path, io.failure)
         _give_final_name(partial, path, overwrite=overwrite)
     except OSError as err:
         partial.unlink(missing_ok=True)

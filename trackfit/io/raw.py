@@ -187,7 +187,7 @@ class RawEventWriter(PartialFileWriter):
                              f"is {state[batch.pedestal_subtracted]}; build the batch with "
                              f"pedestal_subtracted={self.pedestal_subtracted}")
         keys = sorted(batch.truth)
-        if self._truth_keys is None and len(batch):
+        if self._truth_keys is None and (len(batch) or keys):  # an empty batch with truth fixes its columns too
             self._truth_keys = keys
             if keys:
                 truth = self._file.create_group("truth")

@@ -214,6 +214,15 @@ def _columns(batch: EventBatch, out_f, out_i, estimates=None) -> dict[str, np.nd
     return columns
 
 
+def empty_columns(prepared: _Prepared) -> dict[str, np.ndarray]:
+    """The columns of a table of no events, as :func:`reconstruct` gives them for an empty batch (the same names
+    and dtypes as for any other batch: :data:`TABLE_COLUMNS` and the columns of the config's emission estimate)."""
+    batch = EventBatch.empty(prepared.grid)
+    estimates: dict = {}
+    out_f, out_i = prepared.run(batch, estimates=estimates)
+    return _columns(batch, out_f, out_i, estimates)
+
+
 def _base_provenance(config: ReconConfig, grid: HexGrid, scale: tuple[float, str]) -> dict:
     from .. import __version__
 
@@ -472,6 +481,8 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
                          f"not {start}:{stop}")
     update = update or (lambda n: None)
     fingerprint = _Fingerprint()
+    if stop <= start and not writer.columns:  # no events: still every column, empty, with its dtype
+        writer.append(empty_columns(prepared))
     copies: list = []  # (name, dataset) of the truth columns still to copy, looked up once reading has ended
     lookup = [truth] if truth is not None else []
 
