@@ -28,6 +28,7 @@ import re
 import secrets
 import socket
 from pathlib import Path
+from typing import NoReturn
 
 import h5py
 
@@ -107,6 +108,16 @@ def remove_stale_partials(path) -> list[Path]:
     return removed
 
 
+def _read_at(fd: int, view: memoryview, offset: int) -> int:
+    """Read into ``view`` from ``offset``; returns the bytes read (0 at the end of the file)."""
+    if hasattr(os, "preadv"):
+        return os.preadv(fd, [view], offset)
+    os.lseek(fd, offset, os.SEEK_SET)  # pragma: no cover - systems without preadv
+    data = os.read(fd, len(view))  # pragma: no cover
+    view[:len(data)] = data  # pragma: no cover
+    return len(data)  # pragma: no cover
+
+
 class _GuardedFile:
     """The file object HDF5 writes through (h5py's ``fileobj`` driver): positioned reads and writes on a descriptor.
 
@@ -136,7 +147,7 @@ class _GuardedFile:
         view = memoryview(buffer).cast("B")
         done = 0
         while done < len(view):
-            n = os.preadv(self.fd, [view[done:]], self.position + done)
+            n = _read_at(self.fd, view[done:], self.position + done)
             if n == 0:  # past the end (HDF5 reads zeros there)
                 break
             done += n
@@ -164,7 +175,10 @@ class _GuardedFile:
 
     def _write_at(self, view, offset: int) -> int:
         """One positioned write; returns the bytes written (the seam the fault tests replace)."""
-        return os.pwrite(self.fd, view, offset)
+        if hasattr(os, "pwrite"):
+            return os.pwrite(self.fd, view, offset)
+        os.lseek(self.fd, offset, os.SEEK_SET)  # pragma: no cover - systems without pwrite
+        return os.write(self.fd, view)  # pragma: no cover
 
     def truncate(self, size=None):
         size = self.position if size is None else int(size)
@@ -242,9 +256,9 @@ def _appeared(path: Path) -> FileWriteError:
 class PartialFileWriter:
     """Base of the writers: opens a new partial file and writes the root attributes of our formats.
 
-    Subclasses call :meth:`_open` first in ``__init__`` and build their layout inside ``try: ... except:
-    self.abort(); raise``, so a bad argument never leaves a stray partial file behind. They call
-    :meth:`check_writes` after each step that writes a lot (appends), so a full disk is reported at once.
+    Subclasses call :meth:`_open` first in ``__init__`` and build their layout inside ``try: ... except
+    BaseException as err: self.fail(err)``, so a bad argument never leaves a stray partial file behind. They
+    call :meth:`check_writes` after each step that writes a lot (appends), so a full disk is reported at once.
     """
 
     format_name = ""
@@ -275,9 +289,8 @@ class PartialFileWriter:
             attrs["created_by"] = created_by or f"trackfit {__version__}"
             attrs["created_utc"] = created_utc or now_utc()
             self.check_writes()
-        except BaseException:
-            self.abort()
-            raise
+        except BaseException as err:
+            self.fail(err)
         return self._file
 
     def __enter__(self):
@@ -286,8 +299,10 @@ class PartialFileWriter:
     def __exit__(self, exc_type, exc, tb):
         if exc_type is None:
             self.close()
-        else:
-            self.abort()
+            return False
+        replacement = self._abort_after(exc)
+        if replacement is not None:
+            raise replacement from exc
         return False
 
     @property
@@ -321,9 +336,8 @@ class PartialFileWriter:
         try:
             self._finish()
             self.check_writes()
-        except BaseException:
-            self.abort()
-            raise
+        except BaseException as err:
+            self.fail(err)
         self._close_file()
         failure = self._io.failure
         try:
@@ -355,6 +369,24 @@ class PartialFileWriter:
                 partial.unlink(missing_ok=True)
             except OSError:  # pragma: no cover - e.g. the folder became read-only meanwhile
                 pass
+
+    def _abort_after(self, error: BaseException) -> FileWriteError | None:
+        """Abort after ``error``; returns the FileWriteError to raise instead when a write had failed before
+        (``error`` is then its consequence, e.g. HDF5 reading back bytes that were never written)."""
+        io = getattr(self, "_io", None)
+        failure = None if io is None else io.failure
+        self.abort()
+        if failure is None or not isinstance(error, Exception) or isinstance(error, FileWriteError):
+            return None
+        return _write_error(self.path, failure)
+
+    def fail(self, error: BaseException) -> NoReturn:
+        """Abort after ``error`` and raise: :class:`FileWriteError` (caused by ``error``) when a write to the file
+        had failed before, else ``error`` itself. For ``except BaseException as err: writer.fail(err)``."""
+        replacement = self._abort_after(error)
+        if replacement is not None:
+            raise replacement from error
+        raise error
 
     def abort(self) -> None:
         """Close and delete the partial file (the final name is never created)."""

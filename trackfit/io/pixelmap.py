@@ -339,9 +339,8 @@ def write_pixel_map(path, pixel_map: PixelMap, *, overwrite: bool = False, creat
         sources.create_dataset("n_events", data=np.array(columns["n_events"], dtype=np.int64))
         sources.create_dataset("trigger_mode", data=np.array(columns["trigger_mode"], dtype=object), dtype=string)
         sources.create_dataset("pedestal_subtracted", data=np.array(columns["pedestal_subtracted"], dtype=bool))
-    except BaseException:
-        writer.abort()
-        raise
+    except BaseException as err:
+        writer.fail(err)
     return writer.close()
 
 

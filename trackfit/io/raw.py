@@ -161,9 +161,8 @@ class RawEventWriter(PartialFileWriter):
             self.pedestal_subtracted = None
             if pedestal_subtracted is not None:
                 self._set_pedestal_subtracted(bool(pedestal_subtracted))
-        except BaseException:
-            self.abort()
-            raise
+        except BaseException as err:
+            self.fail(err)
 
     def __len__(self):
         return self._n_events

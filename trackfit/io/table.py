@@ -454,9 +454,8 @@ class TableWriter(PartialFileWriter):
             self._provenance = f.create_group("provenance")
             _write_provenance(self._provenance, {"trackfit_version": __version__,
                                                  "created_utc": f.attrs["created_utc"], **(provenance or {})})
-        except BaseException:
-            self.abort()
-            raise
+        except BaseException as err:
+            self.fail(err)
 
     def __len__(self):
         return self._n

@@ -401,9 +401,8 @@ def join_parts(job: FileJob) -> Path:
             raise RuntimeError(f"joined {len(writer)} rows for {job.n_events} events of '{job.raw_path}'")
         writer.set_provenance(input_fingerprint=fingerprint.hexdigest(), n_malformed_events=n_malformed,
                               created_utc=min(created), finished_utc=now_utc(), n_parts=len(job.ranges))
-    except BaseException:
-        writer.abort()
-        raise
+    except BaseException as err:
+        writer.fail(err)
     path = writer.close()  # the commit point
     shutil.rmtree(parts_folder(job.out_path), ignore_errors=True)
     return path

@@ -390,9 +390,8 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
                 n_malformed_events=len(reader.bad_events),
                 finished_utc=now_utc(),
             )
-        except BaseException:
-            writer.abort()
-            raise
+        except BaseException as err:
+            writer.fail(err)
         return writer.close()
 
 
