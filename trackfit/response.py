@@ -30,12 +30,13 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import h5py
 import numpy as np
 
 from .io._partial import PartialFileWriter
+from .io.errors import FileFormatError
 from .io.kinds import open_kind
 from .io.raw import EVENT_DATASETS
+from .io.structure import CheckedFile, real_attribute, text_attribute
 from .recon import ReconConfig
 from .simulate import SimConfig
 
@@ -78,15 +79,15 @@ _ROOT_TEXT = ("name", "description", "origin", "design_toml", "recon_toml", "sel
               "notes_json")
 
 
-class ResponseFormatError(ValueError):
+class ResponseFormatError(FileFormatError):
     """A response file that does not follow ``docs/response-format.md``; names the file, the dataset and the first
-    bad entry."""
+    bad entry (``index``, an energy index)."""
 
-    def __init__(self, path, message, *, dataset=None, index=None):
-        self.path, self.dataset, self.index = str(path), dataset, index
-        where = f"file '{path}'" + (f", dataset '{dataset}'" if dataset else "") + \
-            (f", energy index {index}" if index is not None else "")
-        super().__init__(f"{where}: {message}")
+    def __init__(self, path, message, *, dataset=None, index=None, event=None):
+        self.index = index
+        if index is not None:
+            message = f"energy index {index}: {message}"
+        super().__init__(path, message, dataset=dataset, event=event)
 
 
 def raw_bytes_per_event(roi_pixels) -> np.ndarray | float:
@@ -292,8 +293,11 @@ class DetectorResponse:
         return writer.path
 
     @classmethod
-    def load(cls, path) -> DetectorResponse:
+    def load(cls, path, *, allow_external: bool = False) -> DetectorResponse:
         """Read a response file, checking it against ``docs/response-format.md``.
+
+        ``allow_external=True`` accepts data stored in other files (external links, external storage, virtual
+        datasets), refused by default.
 
         Raises
         ------
@@ -303,44 +307,56 @@ class DetectorResponse:
             entry).
         """
         path = Path(path)
-        f, attrs = open_kind(path, RESPONSE_FORMAT, what="response file",
-                             error=ResponseFormatError)
+        f, attrs = open_kind(path, RESPONSE_FORMAT, what="response file", error=ResponseFormatError,
+                             versions=(RESPONSE_FORMAT_VERSION,), allow_external=allow_external)
         with f:
-            if attrs.get("format_version") != RESPONSE_FORMAT_VERSION:
-                raise ResponseFormatError(path, f"format_version {attrs.get('format_version')!r} is not one this "
-                                                f"version reads (expected {RESPONSE_FORMAT_VERSION})", dataset="/")
+            checked = CheckedFile(f, path, ResponseFormatError)
+            fail = checked.failer("/")
             missing = [k for k in (*_ROOT_TEXT, "chip_area_cm2") if k not in attrs]
             if missing:
                 raise ResponseFormatError(path, f"missing root attribute(s) {missing}", dataset="/")
+            text = {key: text_attribute(attrs, key, fail) for key in (*_ROOT_TEXT, "created_by", "created_utc")
+                    if key in _ROOT_TEXT or key in attrs}
+            chip_area = real_attribute(attrs, "chip_area_cm2", fail, positive=True)
             columns = {}
             for group_name, spec in (("per_energy", PER_ENERGY_COLUMNS), ("absorption", ABSORPTION_COLUMNS)):
-                if group_name not in f:
-                    raise ResponseFormatError(path, "missing group", dataset=f"/{group_name}")
-                group = f[group_name]
+                checked.group(f"/{group_name}")
                 columns[group_name] = {}
                 for name in spec:
-                    where = f"/{group_name}/{name}"
-                    if name not in group or not isinstance(group[name], h5py.Dataset):
-                        raise ResponseFormatError(path, "missing dataset", dataset=where)
-                    ds = group[name]
-                    if ds.ndim != 1 or ds.dtype.kind != "f":
-                        raise ResponseFormatError(path, f"expected a 1-D float dataset, found shape {ds.shape} "
-                                                        f"dtype {ds.dtype}", dataset=where)
-                    columns[group_name][name] = ds[()].astype(np.float64)
+                    ds = checked.dataset(f"/{group_name}/{name}", kinds="f", ndim=1, max_size=10_000_000)
+                    columns[group_name][name] = checked.read(ds).astype(np.float64)
+        where = {"design_toml": "design", "recon_toml": "reconstruction settings"}
+        try:
+            design = SimConfig.from_toml(text["design_toml"])
+        except (ValueError, TypeError, KeyError) as err:
+            raise ResponseFormatError(path, f"root attribute 'design_toml' is not a valid {where['design_toml']} "
+                                            f"({err})", dataset="/") from None
+        try:
+            recon = ReconConfig.from_toml(text["recon_toml"], source=f"'{path}' recon_toml")
+        except (ValueError, TypeError, KeyError) as err:
+            raise ResponseFormatError(path, f"root attribute 'recon_toml' is not valid {where['recon_toml']} "
+                                            f"({err})", dataset="/") from None
+        parsed = {}
+        for key, kind in (("selection_json", dict), ("settings_json", dict), ("notes_json", list)):
             try:
-                design = SimConfig.from_toml(attrs["design_toml"])
-                recon = ReconConfig.from_toml(attrs["recon_toml"], source=f"'{path}' recon_toml")
-                selection = json.loads(attrs["selection_json"])
-                settings = json.loads(attrs["settings_json"])
-                notes = json.loads(attrs["notes_json"])
-            except (ValueError, TypeError) as err:
-                raise ResponseFormatError(path, f"unreadable root attribute ({err})", dataset="/") from None
+                parsed[key] = json.loads(text[key])
+            except ValueError as err:
+                raise ResponseFormatError(path, f"root attribute '{key}' is not JSON text ({err})",
+                                          dataset="/") from None
+            if not isinstance(parsed[key], kind):
+                raise ResponseFormatError(path, f"root attribute '{key}' must hold a JSON "
+                                                f"{'object' if kind is dict else 'array'} (got {text[key]!r:.60})",
+                                          dataset="/")
+        if text["origin"] not in ORIGINS:
+            raise ResponseFormatError(path, f"root attribute 'origin' must be one of {ORIGINS} (got "
+                                            f"{text['origin']!r})", dataset="/")
         for group_name in ("per_energy", "absorption"):
             _check_lengths_and_energies(path, group_name, columns[group_name])
-        return cls(name=attrs["name"], description=attrs["description"], origin=attrs["origin"], design=design,
-                   recon_config=recon, selection=selection, settings=settings, per_energy=columns["per_energy"],
-                   absorption=columns["absorption"], chip_area_cm2=float(attrs["chip_area_cm2"]), notes=notes,
-                   created_by=attrs.get("created_by", ""), created_utc=attrs.get("created_utc", ""))
+        return cls(name=text["name"], description=text["description"], origin=text["origin"], design=design,
+                   recon_config=recon, selection=parsed["selection_json"], settings=parsed["settings_json"],
+                   per_energy=columns["per_energy"], absorption=columns["absorption"], chip_area_cm2=chip_area,
+                   notes=parsed["notes_json"], created_by=text.get("created_by", ""),
+                   created_utc=text.get("created_utc", ""))
 
     def replace(self, **changes) -> DetectorResponse:
         """A copy with fields changed (:func:`dataclasses.replace`)."""

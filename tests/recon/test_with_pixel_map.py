@@ -147,7 +147,7 @@ def test_bad_map_files_are_named(tmp_path):
     good = write_pixel_map(tmp_path / "good.h5", random_map(HexGrid(n_columns=30, n_rows=20)))
     text = tmp_path / "notes.h5"
     text.write_text("not a map")
-    with pytest.raises(PixelMapFormatError, match=r"pixel map '.*notes.h5': not a readable HDF5 file"):
+    with pytest.raises(PixelMapFormatError, match=r"file '.*notes.h5': not a readable HDF5 file"):
         reconstruct(toy_tracks(2, 1), ReconConfig(pixel_map=str(text)))
     raw = tmp_path / "raw.h5"
     with RawEventWriter(raw, GRID) as writer:
@@ -168,7 +168,7 @@ def test_bad_map_files_are_named(tmp_path):
         bad.write_bytes(good.read_bytes())
         with h5py.File(bad, "r+") as f:
             change(f)
-        with pytest.raises(PixelMapFormatError, match=r"pixel map '.*bad.h5', " + message):
+        with pytest.raises(PixelMapFormatError, match=r"file '.*bad.h5', " + message):
             ReconConfig(pixel_map=str(bad)) and reconstruct(EventBatch.empty(HexGrid(n_columns=30, n_rows=20)),
                                                             ReconConfig(pixel_map=str(bad)))
 

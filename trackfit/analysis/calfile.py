@@ -18,7 +18,9 @@ from pathlib import Path
 import numpy as np
 
 from ..io._partial import PartialFileWriter, now_utc
+from ..io.errors import FileFormatError
 from ..io.kinds import open_kind
+from ..io.structure import CheckedFile, integer_attribute, real_attribute, text_attribute
 from .gainmap import GainMap
 from .gaintime import GainDrift
 from .modfactor import ModulationFactorCurve
@@ -36,12 +38,8 @@ _PARTS = ("energy_scale", "gain_map", "gain_drift", "modulation_factor", "spurio
 ESTIMATE_PARTS = ("modulation_factor", "spurious_modulation", "modulation_response")
 
 
-class CalibrationFormatError(ValueError):
-    """A calibration file that does not follow ``docs/calibration-format.md``."""
-
-    def __init__(self, path, message, *, dataset=None):
-        where = f"{path}" + (f" [{dataset}]" if dataset else "")
-        super().__init__(f"{where}: {message}")
+class CalibrationFormatError(FileFormatError):
+    """A calibration file that does not follow ``docs/calibration-format.md``; names the file and the dataset."""
 
 
 def _version() -> str:
@@ -214,26 +212,39 @@ class Calibration:
         return writer.path
 
     @classmethod
-    def load(cls, path) -> Calibration:
-        """Read a calibration file; unknown groups are rejected with the list of known ones."""
+    def load(cls, path, *, allow_external: bool = False) -> Calibration:
+        """Read a calibration file; unknown groups are rejected with the list of known ones.
+
+        Every dataset and attribute is checked for its type and shape before use; ``allow_external=True`` accepts
+        data stored in other files (external links, external storage, virtual datasets), refused by default.
+
+        Raises
+        ------
+        FileNotFoundError
+        CalibrationFormatError
+            Names the file and the group, dataset or attribute.
+        """
         path = Path(path)
-        f, attrs = open_kind(path, CALIBRATION_FORMAT, what="calibration file", error=CalibrationFormatError)
+        f, _ = open_kind(path, CALIBRATION_FORMAT, what="calibration file", error=CalibrationFormatError,
+                         versions=(CALIBRATION_FORMAT_VERSION,), allow_external=allow_external)
         with f:
-            version = int(attrs.get("format_version", -1))
-            if version != CALIBRATION_FORMAT_VERSION:
-                raise CalibrationFormatError(path, f"format_version {version} is not supported (this trackfit "
-                                                   f"reads version {CALIBRATION_FORMAT_VERSION})")
-            unknown = sorted(set(f) - set(_PARTS))
+            checked = CheckedFile(f, path, CalibrationFormatError)
+            with checked.guard("/"):
+                names = list(f)
+            unknown = sorted(set(names) - set(_PARTS))
             if unknown:
-                raise CalibrationFormatError(path, f"unknown group(s) {unknown}; known: {list(_PARTS)}")
+                raise CalibrationFormatError(path, f"unknown group(s) {unknown}; known: {list(_PARTS)}", dataset="/")
             parts, provenance = {}, {}
-            for name in f:
-                group = f[name]
+            for name in names:
+                part = _Part(checked, name)
                 try:
-                    parts[name] = _READERS[name](group)
-                except (KeyError, ValueError, TypeError) as err:
-                    raise CalibrationFormatError(path, f"cannot read: {err}", dataset=f"/{name}") from None
-                provenance[name] = json.loads(group.attrs.get("provenance", "{}"))
+                    parts[name] = _READERS[name](part)
+                except CalibrationFormatError:
+                    raise
+                except (ValueError, TypeError) as err:  # the part's own checks of consistent values
+                    raise CalibrationFormatError(path, f"not a valid {name.replace('_', ' ')}: {err}",
+                                                 dataset=f"/{name}") from None
+                provenance[name] = part.json("provenance", default={})
         return cls(**parts, provenance=provenance)
 
     # ------------------------------------------------------------------------------------------ display
@@ -278,10 +289,10 @@ def _write_energy_scale(group, scale: EnergyScale):
     group.create_dataset("line_energy_kev", data=np.asarray(scale.line_energies_kev, dtype=float))
 
 
-def _read_energy_scale(group) -> EnergyScale:
-    return EnergyScale(coefficients=tuple(np.asarray(group.attrs["coefficients"], dtype=float)),
-                       line_pulse_heights=tuple(group["line_pulse_height"][()]),
-                       line_energies_kev=tuple(group["line_energy_kev"][()]))
+def _read_energy_scale(part) -> EnergyScale:
+    return EnergyScale(coefficients=part.numbers("coefficients"),
+                       line_pulse_heights=tuple(part.array("line_pulse_height")),
+                       line_energies_kev=tuple(part.array("line_energy_kev")))
 
 
 def _write_gain_map(group, gain: GainMap):
@@ -293,21 +304,68 @@ def _write_gain_map(group, gain: GainMap):
     group.attrs["position"] = gain.position
 
 
-def _position(value) -> str:
+def _position(value: str) -> str:
     """A map's position name; files of trackfit 0.1 call the centroid 'barycentre'."""
-    value = _str(value)
     return "centroid" if value == "barycentre" else value
 
 
-def _str(value):
-    return value.decode() if isinstance(value, bytes) else str(value)
+#: the most values a dataset of a calibration part may hold (maps of a few hundred cells per axis and energy)
+_MAX_PART_VALUES = 10_000_000
 
 
-def _read_gain_map(group) -> GainMap:
-    return GainMap(**{name: group[name][()] for name in ("x_edges_mm", "y_edges_mm", "relative_gain",
+class _Part:
+    """The datasets and attributes of one part's group, each checked for its type before use."""
+
+    def __init__(self, checked: CheckedFile, name: str):
+        self.checked = checked
+        self.where = f"/{name}"
+        self.group = checked.group(self.where)
+        self.attrs = checked.attributes(self.group)
+        self.fail = checked.failer(self.where)
+
+    def array(self, name: str) -> np.ndarray:
+        ds = self.checked.dataset(f"{self.where}/{name}", kinds="biuf", max_size=_MAX_PART_VALUES)
+        if ds.ndim == 0:
+            self.checked.fail("expected an array, found a scalar", ds.name)
+        return np.asarray(self.checked.read(ds), dtype=float)
+
+    def numbers(self, key: str) -> tuple:
+        value = self.attrs.get(key)
+        if key not in self.attrs:
+            self.fail(f"missing attribute '{key}'")
+        values = value if isinstance(value, list) else [value]
+        if not values or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in values):
+            self.fail(f"attribute '{key}' must be a non-empty array of numbers (got {value!r:.80})")
+        return tuple(float(v) for v in values)
+
+    def real(self, key: str) -> float:
+        """A number (NaN and infinities pass: the part's own checks judge values)."""
+        value = self.attrs.get(key)
+        if isinstance(value, float):
+            return value
+        return real_attribute(self.attrs, key, self.fail)
+
+    def integer(self, key: str, minimum: int | None = None) -> int:
+        return integer_attribute(self.attrs, key, self.fail, minimum=minimum)
+
+    def text(self, key: str) -> str:
+        return text_attribute(self.attrs, key, self.fail)
+
+    def json(self, key: str, default=None):
+        if key not in self.attrs and default is not None:
+            return default
+        text = self.text(key)
+        try:
+            return json.loads(text)
+        except ValueError as err:
+            self.fail(f"attribute '{key}' must be JSON text ({err})")
+
+
+def _read_gain_map(part) -> GainMap:
+    return GainMap(**{name: part.array(name) for name in ("x_edges_mm", "y_edges_mm", "relative_gain",
                                                           "relative_gain_err", "counts")},
-                   reference_peak=float(group.attrs["reference_peak"]), min_counts=int(group.attrs["min_counts"]),
-                   line=_str(group.attrs["line"]), position=_position(group.attrs["position"]))
+                   reference_peak=part.real("reference_peak"), min_counts=part.integer("min_counts"),
+                   line=part.text("line"), position=_position(part.text("position")))
 
 
 def _write_gain_drift(group, drift: GainDrift):
@@ -319,11 +377,11 @@ def _write_gain_drift(group, drift: GainDrift):
     group.attrs["chi2"] = drift.chi2
 
 
-def _read_gain_drift(group) -> GainDrift:
-    return GainDrift(**{name: group[name][()] for name in ("node_time_s", "node_gain", "slice_time_s",
+def _read_gain_drift(part) -> GainDrift:
+    return GainDrift(**{name: part.array(name) for name in ("node_time_s", "node_gain", "slice_time_s",
                                                             "slice_peak", "slice_peak_err")},
-                     reference_peak=float(group.attrs["reference_peak"]), model=_str(group.attrs["model"]),
-                     parameters=json.loads(group.attrs["parameters"]), chi2=float(group.attrs["chi2"]))
+                     reference_peak=part.real("reference_peak"), model=part.text("model"),
+                     parameters=part.json("parameters"), chi2=part.real("chi2"))
 
 
 def _write_modulation_factor(group, curve: ModulationFactorCurve):
@@ -335,12 +393,12 @@ def _write_modulation_factor(group, curve: ModulationFactorCurve):
     group.create_dataset("point_error", data=np.asarray(curve.points_error, dtype=float))
 
 
-def _read_modulation_factor(group) -> ModulationFactorCurve:
-    return ModulationFactorCurve(coefficients=tuple(np.asarray(group.attrs["coefficients"], dtype=float)),
-                                 energy_range_kev=tuple(np.asarray(group.attrs["energy_range_kev"], dtype=float)),
-                                 points_energy_kev=tuple(group["point_energy_kev"][()]),
-                                 points_value=tuple(group["point_value"][()]),
-                                 points_error=tuple(group["point_error"][()]))
+def _read_modulation_factor(part) -> ModulationFactorCurve:
+    return ModulationFactorCurve(coefficients=part.numbers("coefficients"),
+                                 energy_range_kev=part.numbers("energy_range_kev"),
+                                 points_energy_kev=tuple(part.array("point_energy_kev")),
+                                 points_value=tuple(part.array("point_value")),
+                                 points_error=tuple(part.array("point_error")))
 
 
 _SPURIOUS_DATASETS = ("energy_kev", "x_edges_mm", "y_edges_mm", "q", "u", "q_err", "u_err", "counts")
@@ -353,9 +411,9 @@ def _write_spurious(group, spurious: SpuriousMap):
     group.attrs["interpolation"] = "linear in energy between nodes, constant beyond; nearest spatial cell"
 
 
-def _read_spurious(group) -> SpuriousMap:
-    return SpuriousMap(**{name: group[name][()] for name in _SPURIOUS_DATASETS},
-                       position=_position(group.attrs["position"]))
+def _read_spurious(part) -> SpuriousMap:
+    return SpuriousMap(**{name: part.array(name) for name in _SPURIOUS_DATASETS},
+                       position=_position(part.text("position")))
 
 
 _RESPONSE_ATTRIBUTES = ("coefficients", "feature_low", "feature_high", "feature_mean", "feature_scale")
@@ -370,11 +428,10 @@ def _write_modulation_response(group, response: ModulationResponse):
         group.attrs[name] = np.asarray(getattr(response, name), dtype=float)
 
 
-def _read_modulation_response(group) -> ModulationResponse:
-    return ModulationResponse(**{name: tuple(np.asarray(group.attrs[name], dtype=float))
-                                 for name in _RESPONSE_ATTRIBUTES},
-                              degree=int(group.attrs["degree"]), n_events=int(group.attrs["n_events"]),
-                              features=tuple(_str(group.attrs["features"]).split(",")))
+def _read_modulation_response(part) -> ModulationResponse:
+    return ModulationResponse(**{name: part.numbers(name) for name in _RESPONSE_ATTRIBUTES},
+                              degree=part.integer("degree", minimum=0), n_events=part.integer("n_events", minimum=0),
+                              features=tuple(part.text("features").split(",")))
 
 
 _WRITERS = {"energy_scale": _write_energy_scale, "gain_map": _write_gain_map, "gain_drift": _write_gain_drift,

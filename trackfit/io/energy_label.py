@@ -72,7 +72,7 @@ def counts_per_kev_from_run(run_info: Mapping, *, path=None) -> float | None:
         number = float(value)
     except (TypeError, ValueError):
         number = math.nan
-    if isinstance(value, bool) or not math.isfinite(number) or number <= 0:
+    if isinstance(value, bool | str | bytes) or not math.isfinite(number) or number <= 0:
         raise ValueError(f"{where}/run attribute '{RUN_COUNTS_PER_KEV}': expected a positive number of ADC "
                          f"counts per keV (got {value!r})")
     return number

@@ -1,4 +1,10 @@
-"""The errors of trackfit's file writers (and, beside them, of its readers).
+"""The errors of trackfit's files: what readers raise for a file that does not follow its format, and what writers
+raise when a file cannot be written.
+
+:class:`FileFormatError` is the base of every reader's format error (``RawFormatError``, ``TableFormatError``,
+``CalibrationFormatError``, ``PixelMapFormatError``, ``ResponseFormatError``), so a caller can catch them all at
+once; each names the file, and where it applies the dataset (or attribute owner) and the first bad event:
+``file '<path>', dataset '<name>', event N: <what was expected> (got ...)``.
 
 :class:`FileWriteError` is what every writer raises when the file cannot be written: full disk, file-size limit,
 permission denied, read-only file system, missing folder, or another process that wrote the same output meanwhile.
@@ -6,13 +12,14 @@ It is an :class:`OSError`, names the final file and the cause in words, and keep
 behind it. The writer has removed its partial file when it raises.
 """
 
+
 from __future__ import annotations
 
 import errno as _errno
 import os
 from pathlib import Path
 
-__all__ = ["FileWriteError", "describe_os_error"]
+__all__ = ["FileFormatError", "FileWriteError", "describe_os_error"]
 
 #: causes of failed writes, in the words of the messages (other errno values use the system's own text)
 _CAUSES = {
@@ -85,3 +92,49 @@ class FileWriteError(OSError):
 
 def _rebuild(cls, path, cause, errno):
     return cls(path, cause, errno=errno)
+
+
+class FileFormatError(ValueError):
+    """A file that does not follow its trackfit format (or is not a file trackfit can read at all).
+
+    Parameters
+    ----------
+    path : str or Path
+        The file.
+    message : str
+        What was expected and what was found.
+    dataset : str, optional
+        The HDF5 object concerned (``"/"`` for the root attributes).
+    event : int, optional
+        The first bad event (row) where one is concerned.
+
+    Attributes
+    ----------
+    path : str
+    dataset : str or None
+    event : int or None
+    reason : str
+        ``message`` alone, without the location.
+    """
+
+    def __init__(self, path, message, *, dataset=None, event=None):
+        self.path = str(path)
+        self.dataset = dataset
+        self.event = event
+        self.reason = str(message)
+        where = [f"file '{self.path}'"]
+        if dataset is not None:
+            where.append(f"dataset '{dataset}'")
+        if event is not None:
+            where.append(f"event {event}")
+        super().__init__(f"{', '.join(where)}: {message}")
+
+    def __reduce__(self):  # picklable (errors cross process pools)
+        return (_rebuild_format_error, (type(self), self.args, dict(self.__dict__)))
+
+
+def _rebuild_format_error(cls, args, state):
+    error = cls.__new__(cls)
+    Exception.__init__(error, *args)
+    error.__dict__.update(state)
+    return error

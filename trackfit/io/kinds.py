@@ -1,19 +1,31 @@
 """The kinds of trackfit HDF5 files, and the one way every reader opens a file and checks its kind.
 
 Every file trackfit writes carries the root attributes ``trackfit_format`` (its kind, below) and ``format_version``.
-A reader calls :func:`open_kind`: the file must exist, be HDF5 and be of the expected kind; a file of another
-trackfit kind gets an error that says what it is and what to do with it. Each reader then checks the version and
-layout of its own format.
+A reader calls :func:`open_kind`: the file must exist, be a regular file (not a pipe, device or directory), be
+HDF5, keep all its data in itself (no external links or storage, unless allowed) and be of the expected kind; a
+file of another trackfit kind gets an error that says what it is and what to do with it. Each reader then
+checks the layout of its own format.
 """
 
 from __future__ import annotations
 
+import stat
 from pathlib import Path
 
 import h5py
-import numpy as np
 
-__all__ = ["KINDS", "open_file", "open_kind", "plain_attribute", "wrong_kind_hint"]
+from .heapcheck import damaged_global_heaps
+from .structure import (
+    H5PY_ERRORS,
+    CheckedFile,
+    external_data_message,
+    find_external_data,
+    integer_attribute,
+    plain_value,
+)
+
+__all__ = ["KINDS", "check_format_version", "check_regular_file", "open_file", "open_kind", "plain_attribute",
+           "wrong_kind_hint"]
 
 #: ``trackfit_format`` value -> (what the file is, what to do with it)
 KINDS: dict[str, tuple[str, str]] = {
@@ -32,44 +44,97 @@ _USE_INSTEAD = {("raw-events", "pixel-map"): "make a map from it with `trackfit 
 
 def plain_attribute(value):
     """An HDF5 attribute value as plain Python: text for bytes, lists for arrays, Python numbers for numpy ones."""
-    if isinstance(value, bytes):
-        return value.decode()
-    if isinstance(value, np.ndarray):
-        return [plain_attribute(v) for v in value.tolist()]
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
+    return plain_value(value)
 
 
 def wrong_kind_hint(found, expected: str = "") -> str:
     """``": this is <a kind>; <what to do with it>"`` for a file of another trackfit kind, else ``""``."""
-    if found not in KINDS:
+    if not isinstance(found, str) or found not in KINDS:
         return ""
     what, use = KINDS[found]
     return f": this is {what}; {_USE_INSTEAD.get((found, expected), use)}"
 
 
-def open_file(path, *, what: str, error) -> tuple[h5py.File, dict]:
-    """Open a file for reading as HDF5; returns it (the caller closes it) and its root attributes as plain values.
+def check_regular_file(path, *, what: str, error) -> Path:
+    """Refuse, before any HDF5 call, a path that is not an existing regular file (a directory, a named pipe, a
+    device, a socket): HDF5 would block on a pipe forever or fail obscurely on the others.
 
-    Raises ``FileNotFoundError("<what> '<path>' does not exist")``, or ``error(path, "not a readable HDF5 file
-    (...)")`` (see :func:`open_kind`).
+    Raises ``FileNotFoundError("<what> '<path>' does not exist")`` or ``error(path, "<what it is>, not a regular
+    file ...", dataset=None)``.
     """
     path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"{what} '{path}' does not exist")
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise FileNotFoundError(f"{what} '{path}' does not exist") from None
+    except OSError as err:
+        raise error(path, f"cannot be examined ({err.strerror or err})") from None
+    if stat.S_ISREG(mode):
+        return path
+    kind = ("a directory" if stat.S_ISDIR(mode) else "a named pipe (FIFO)" if stat.S_ISFIFO(mode)
+            else "a character device" if stat.S_ISCHR(mode) else "a block device" if stat.S_ISBLK(mode)
+            else "a socket" if stat.S_ISSOCK(mode) else "not a regular file")
+    raise error(path, f"is {kind}, not a regular file: trackfit reads {what}s stored as HDF5 files on a disk "
+                      "(copy streamed data into a file first)")
+
+
+def open_file(path, *, what: str, error, allow_external: bool = False) -> tuple[h5py.File, dict]:
+    """Open a file for reading as HDF5; returns it (the caller closes it) and its root attributes as plain values.
+
+    The path must be a regular file (:func:`check_regular_file`) without damaged global heap collections
+    (:func:`~trackfit.io.heapcheck.damaged_global_heaps`), the file HDF5 with readable root attributes, and
+    no object may take its data from another file (:func:`~trackfit.io.structure.find_external_data`) unless
+    ``allow_external`` is True.
+
+    Raises ``FileNotFoundError("<what> '<path>' does not exist")``, or ``error(path, "not a readable HDF5 file
+    (...)")`` and ``error(path, message, dataset=name)`` (see :func:`open_kind`).
+    """
+    path = check_regular_file(path, what=what, error=error)
+    try:
+        damaged = damaged_global_heaps(path)
+    except OSError as err:
+        raise error(path, f"cannot be read ({err.strerror or err})") from None
+    if damaged:
+        offset, problem = damaged[0]
+        raise error(path, f"damaged HDF5 file: the global heap collection at byte {offset} (where its text values "
+                          f"are stored) is inconsistent: {problem}; the HDF5 library could loop forever on it")
     try:
         f = h5py.File(path, "r")
-    except OSError as err:
+    except H5PY_ERRORS as err:
         raise error(path, f"not a readable HDF5 file ({err})") from None
     try:
-        return f, {k: plain_attribute(v) for k, v in f.attrs.items()}
+        checked = CheckedFile(f, path, error)
+        attrs = checked.attributes("/")
+        if not allow_external:
+            with checked.guard("/", "the objects of the file cannot be listed"):
+                external = find_external_data(f)
+            if external:
+                name, where = external[0]
+                more = f" ({len(external) - 1} more such objects)" if len(external) > 1 else ""
+                raise error(path, external_data_message(where) + more, dataset=name)
+        return f, attrs
     except BaseException:
         f.close()
         raise
 
 
-def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
+def check_format_version(path, attrs: dict, versions, *, error) -> int:
+    """The root attribute ``format_version``: an integer (numpy or Python; not a boolean, float, text or array)
+    among ``versions``."""
+    def fail(message):
+        raise error(path, message, dataset="/")
+
+    if "format_version" not in attrs:
+        fail("missing root attribute 'format_version'")
+    version = integer_attribute(attrs, "format_version", fail)
+    if version not in versions:
+        readable = f"version {versions[0]}" if len(versions) == 1 else f"versions {list(versions)}"
+        fail(f"unknown format_version {version}; this trackfit reads {readable}")
+    return version
+
+
+def open_kind(path, kind: str, *, what: str, error, versions=None,
+              allow_external: bool = False) -> tuple[h5py.File, dict]:
     """Open a trackfit file for reading and check that it is of the expected kind.
 
     Parameters
@@ -80,8 +145,13 @@ def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
     what : str
         How errors name the file (``"pixel map"`` gives ``pixel map '<path>' does not exist``).
     error : type
-        The exception class of the reader's format (a ``ValueError`` taking ``(path, message, dataset=None)``),
-        raised for a file that is not HDF5, or of another kind (``dataset="/"``).
+        The exception class of the reader's format (a :class:`~trackfit.io.errors.FileFormatError` taking
+        ``(path, message, dataset=None)``), raised for a file that is not a regular file, not HDF5, of another
+        kind (``dataset="/"``) or of an unknown version, or with data in other files.
+    versions : sequence of int, optional
+        The ``format_version`` values the reader reads (checked strictly: :func:`check_format_version`).
+    allow_external : bool
+        Accept objects whose data come from other files (external links, external storage, virtual datasets).
 
     Returns
     -------
@@ -93,10 +163,15 @@ def open_kind(path, kind: str, *, what: str, error) -> tuple[h5py.File, dict]:
     FileNotFoundError
         ``"<what> '<path>' does not exist"``.
     """
-    f, attrs = open_file(path, what=what, error=error)
-    found = attrs.get("trackfit_format")
-    if found != kind:
+    f, attrs = open_file(path, what=what, error=error, allow_external=allow_external)
+    try:
+        found = attrs.get("trackfit_format")
+        if found != kind:
+            hint = wrong_kind_hint(found, kind)
+            raise error(path, f"attribute 'trackfit_format' must be '{kind}' (got {found!r}){hint}", dataset="/")
+        if versions is not None:
+            check_format_version(path, attrs, tuple(versions), error=error)
+    except BaseException:
         f.close()
-        hint = wrong_kind_hint(found, kind)
-        raise error(path, f"attribute 'trackfit_format' must be '{kind}' (got {found!r}){hint}", dataset="/")
+        raise
     return f, attrs

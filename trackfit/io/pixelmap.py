@@ -21,7 +21,9 @@ import numpy as np
 
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter
-from .kinds import open_kind, plain_attribute
+from .errors import FileFormatError
+from .kinds import open_kind
+from .structure import CheckedFile, grid_from_attributes
 
 __all__ = ["PixelMap", "PixelCode", "SourceRun", "PixelMapFormatError", "PixelMapMismatchError", "read_pixel_map",
            "write_pixel_map", "CODE_DOCS", "MASKED_CODES", "MAP_ARRAYS", "FORMAT_NAME", "FORMAT_VERSION"]
@@ -71,14 +73,8 @@ MAP_ARRAYS = {
 _SOURCE_FIELDS = ("name", "fingerprint", "n_events", "trigger_mode", "pedestal_subtracted")
 
 
-class PixelMapFormatError(ValueError):
+class PixelMapFormatError(FileFormatError):
     """A pixel-map file that does not follow the format; names the file and the dataset."""
-
-    def __init__(self, path, message, *, dataset=None):
-        self.path = str(path)
-        self.dataset = dataset
-        where = f"pixel map '{self.path}'" + (f", dataset '{dataset}'" if dataset else "")
-        super().__init__(f"{where}: {message}")
 
 
 class PixelMapMismatchError(ValueError):
@@ -344,54 +340,57 @@ def write_pixel_map(path, pixel_map: PixelMap, *, overwrite: bool = False, creat
     return writer.close()
 
 
-def read_pixel_map(path) -> PixelMap:
+def read_pixel_map(path, *, allow_external: bool = False) -> PixelMap:
     """Read and check a pixel map file.
+
+    ``allow_external=True`` accepts data stored in other files (external links, external storage, virtual
+    datasets), refused by default.
 
     Raises
     ------
     FileNotFoundError
         No such file.
     PixelMapFormatError
-        Not an HDF5 file, another kind of trackfit file, an unknown format version, a missing or misshapen dataset,
-        an unknown code, or content that no longer matches the fingerprint written with it.
+        Not a regular file, not an HDF5 file, another kind of trackfit file, an unknown format version, data in
+        other files, absurd chip geometry, a missing or misshapen dataset, an attribute of the wrong type, an
+        unknown code, or content that no longer matches the fingerprint written with it.
     """
     path = Path(path)
-    f, attrs = open_kind(path, FORMAT_NAME, what="pixel map", error=PixelMapFormatError)
+    f, attrs = open_kind(path, FORMAT_NAME, what="pixel map", error=PixelMapFormatError, versions=(FORMAT_VERSION,),
+                         allow_external=allow_external)
     with f:
-        if attrs.get("format_version") != FORMAT_VERSION:
-            raise PixelMapFormatError(path, f"unknown format_version {attrs.get('format_version')!r}; this trackfit "
-                                      f"reads version {FORMAT_VERSION}", dataset="/")
-        if "geometry" not in f:
-            raise PixelMapFormatError(path, "missing group", dataset="/geometry")
-        try:
-            grid = HexGrid.from_dict({k: plain_attribute(v) for k, v in f["geometry"].attrs.items()})
-        except (KeyError, ValueError, TypeError) as err:
-            raise PixelMapFormatError(path, f"bad chip geometry ({err})", dataset="/geometry") from None
+        checked = CheckedFile(f, path, PixelMapFormatError)
+        checked.group("/geometry")
+        grid = grid_from_attributes(checked.attributes("/geometry"), checked.failer("/geometry"))
         arrays = {}
         for name, dtype in MAP_ARRAYS.items():
-            where = f"/pixels/{name}"
-            if where not in f or not isinstance(f[where], h5py.Dataset):
-                raise PixelMapFormatError(path, "missing dataset", dataset=where)
-            ds = f[where]
+            ds = checked.dataset(f"/pixels/{name}")
             if ds.shape != grid.shape:
-                raise PixelMapFormatError(path, f"expected the chip's shape (n_rows, n_columns) = {grid.shape}, "
-                                          f"found {ds.shape}", dataset=where)
-            if ds.dtype != dtype:
-                raise PixelMapFormatError(path, f"expected dtype {dtype.name}, found {ds.dtype}", dataset=where)
-            arrays[name] = ds[()]
-        settings = {k: plain_attribute(v) for k, v in f["settings"].attrs.items()} if "settings" in f else {}
-        statistics = {k: plain_attribute(v) for k, v in f["statistics"].attrs.items()} if "statistics" in f else {}
+                checked.fail(f"expected the chip's shape (n_rows, n_columns) = {grid.shape}, found {ds.shape}",
+                             ds.name)
+            checked.dataset(ds.name, dtype=dtype)
+            arrays[name] = checked.read(ds)
+        settings = checked.attributes("/settings") if checked.group("/settings", required=False) else {}
+        statistics = checked.attributes("/statistics") if checked.group("/statistics", required=False) else {}
         sources = []
-        if "sources" in f:
-            try:
-                columns = {name: plain_attribute(f["sources"][name][()]) for name in _SOURCE_FIELDS}
-                sources = [SourceRun(name=str(columns["name"][i]), fingerprint=str(columns["fingerprint"][i]),
-                                     n_events=int(columns["n_events"][i]),
-                                     trigger_mode=str(columns["trigger_mode"][i]),
-                                     pedestal_subtracted=bool(columns["pedestal_subtracted"][i]))
-                           for i in range(len(columns["name"]))]
-            except (KeyError, IndexError, TypeError) as err:
-                raise PixelMapFormatError(path, f"incomplete list of source runs ({err})", dataset="/sources") from None
+        if checked.group("/sources", required=False) is not None:
+            columns = {}
+            for name, kinds in (("name", "SO"), ("fingerprint", "SO"), ("n_events", "iu"), ("trigger_mode", "SO"),
+                                ("pedestal_subtracted", "b")):
+                ds = checked.dataset(f"/sources/{name}", ndim=1, max_size=1_000_000)
+                if ds.dtype.kind not in kinds or (kinds == "SO" and h5py.check_string_dtype(ds.dtype) is None):
+                    checked.fail(f"expected {'text' if kinds == 'SO' else 'integers' if kinds == 'iu' else 'booleans'}"
+                                 f", found dtype {ds.dtype}", ds.name)
+                with checked.guard(ds.name):
+                    columns[name] = ds.asstr()[()] if kinds == "SO" else ds[()]
+            lengths = {len(v) for v in columns.values()}
+            if len(lengths) != 1:
+                checked.fail(f"the source-run lists differ in length "
+                             f"({ {k: len(v) for k, v in columns.items()} })", "/sources")
+            sources = [SourceRun(name=str(columns["name"][i]), fingerprint=str(columns["fingerprint"][i]),
+                                 n_events=int(columns["n_events"][i]), trigger_mode=str(columns["trigger_mode"][i]),
+                                 pedestal_subtracted=bool(columns["pedestal_subtracted"][i]))
+                       for i in range(lengths.pop())]
         stored = attrs.get("content_fingerprint")
     try:
         pixel_map = PixelMap(grid=grid, **arrays, settings=settings, statistics=statistics, sources=tuple(sources),

@@ -18,7 +18,9 @@ from ..events import Event, EventBatch, find_bad_events
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
+from .errors import FileFormatError
 from .kinds import open_kind
+from .structure import CheckedFile, flag_attribute, grid_from_attributes, text_attribute
 
 __all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION",
            "TRIGGER_MODES"]
@@ -42,19 +44,8 @@ TRIGGER_MODES = ("self", "random")
 DEFAULT_BATCH_SIZE = 65_536
 
 
-class RawFormatError(ValueError):
+class RawFormatError(FileFormatError):
     """A raw event file that does not follow the format; names the file, the dataset and the first bad event."""
-
-    def __init__(self, path, message, *, dataset=None, event=None):
-        self.path = str(path)
-        self.dataset = dataset
-        self.event = event
-        where = [f"file '{self.path}'"]
-        if dataset is not None:
-            where.append(f"dataset '{dataset}'")
-        if event is not None:
-            where.append(f"event {event}")
-        super().__init__(f"{', '.join(where)}: {message}")
 
 
 def _attr_value(value):
@@ -71,16 +62,6 @@ def _attr_value(value):
         f"run information values must be str, numbers or 1-D arrays of them (got {type(value).__name__}); "
         "store structured information as TOML or JSON text"
     )
-
-
-def _decode(value):
-    if isinstance(value, bytes):
-        return value.decode()
-    if isinstance(value, np.ndarray) and value.dtype.kind in "SO":
-        return [v.decode() if isinstance(v, bytes) else v for v in value.tolist()]
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
 
 
 class RawEventWriter(PartialFileWriter):
@@ -260,13 +241,15 @@ class RawEventReader:
         empty placeholder events with ``batch.bad`` set, so downstream tables keep one row per input event.
     """
 
-    def __init__(self, path, *, strict: bool = True):
+    def __init__(self, path, *, strict: bool = True, allow_external: bool = False):
         self.path = Path(path)
         self.strict = strict
         self.bad_events: list[tuple[int, str]] = []
         self._reported: set[int] = set()
-        self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file",
-                                      error=RawFormatError)
+        self._file = None
+        self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file", error=RawFormatError,
+                                      versions=(FORMAT_VERSION,), allow_external=allow_external)
+        self._checked = CheckedFile(self._file, self.path, RawFormatError)
         try:
             self._check_header(attrs)
         except Exception:
@@ -278,55 +261,30 @@ class RawEventReader:
         return RawFormatError(self.path, message, dataset=dataset, event=event)
 
     def _check_header(self, attrs: dict):
-        f = self._file
-        for key in ("format_version", "created_by", "created_utc"):
+        checked = self._checked
+        for key in ("created_by", "created_utc"):
             if key not in attrs:
                 raise self._error(f"missing root attribute '{key}'", dataset="/")
-        if attrs["format_version"] != FORMAT_VERSION:
-            raise self._error(f"unknown format_version {attrs['format_version']!r}; this trackfit reads "
-                              f"version {FORMAT_VERSION}", dataset="/")
+            text_attribute(attrs, key, checked.failer("/"))
         self.header = attrs
-        if "geometry" not in f:
-            raise self._error("missing group", dataset="/geometry")
-        geometry = {k: _decode(v) for k, v in f["geometry"].attrs.items()}
-        for key in GEOMETRY_ATTRIBUTES:
-            if key not in geometry:
-                raise self._error(f"missing attribute '{key}'", dataset="/geometry")
-        try:
-            self.grid = HexGrid.from_dict(geometry)
-        except (ValueError, TypeError) as err:
-            raise self._error(str(err), dataset="/geometry") from None
-        if "events" not in f:
-            raise self._error("missing group", dataset="/events")
-        events = f["events"]
+        checked.group("/geometry")
+        self.grid = grid_from_attributes(checked.attributes("/geometry"), checked.failer("/geometry"))
+        checked.group("/events")
+        datasets = {}
         for name, (dtype, tail) in EVENT_DATASETS.items():
-            path = f"/events/{name}"
-            if name not in events:
-                raise self._error("missing dataset", dataset=path)
-            ds = events[name]
-            if not isinstance(ds, h5py.Dataset):
-                raise self._error("expected a dataset, found a group", dataset=path)
-            if ds.dtype != dtype:
-                raise self._error(f"expected dtype {dtype.name}, found {ds.dtype}", dataset=path)
-            if ds.ndim != 1 + len(tail) or ds.shape[1:] != tail:
-                expected = "(N, 4)" if tail else "1-D"
-                raise self._error(f"expected shape {expected}, found {ds.shape}", dataset=path)
-        self.pedestal_subtracted = True
-        if "pedestal_subtracted" in events.attrs:
-            value = events.attrs["pedestal_subtracted"]
-            if not isinstance(value, bool | np.bool_) and not (isinstance(value, int | np.integer) and value in (0, 1)):
-                raise self._error(f"attribute 'pedestal_subtracted' must be true or false (1 or 0), found {value!r}",
-                                  dataset="/events")
-            self.pedestal_subtracted = bool(value)
-        self.trigger_mode = _decode(events.attrs.get("trigger_mode", "self"))
+            datasets[name] = checked.dataset(f"/events/{name}", dtype=dtype, shape=(None, *tail))
+        events_attrs = checked.attributes("/events")
+        fail = checked.failer("/events")
+        self.pedestal_subtracted = flag_attribute(events_attrs, "pedestal_subtracted", fail, default=True)
+        self.trigger_mode = text_attribute(events_attrs, "trigger_mode", fail, required=False, default="self")
         if self.trigger_mode not in TRIGGER_MODES:
             raise self._error(f"attribute 'trigger_mode' must be one of {TRIGGER_MODES}, found {self.trigger_mode!r}",
                               dataset="/events")
-        self._roi = events["roi"]
-        self._start = events["start"]
-        self._signal = events["signal"]
-        self._time = events["time_s"]
-        self._trigger = events["trigger_id"]
+        self._roi = datasets["roi"]
+        self._start = datasets["start"]
+        self._signal = datasets["signal"]
+        self._time = datasets["time_s"]
+        self._trigger = datasets["trigger_id"]
         n = self._roi.shape[0]
         self._n = n
         self._n_signal = self._signal.shape[0]
@@ -334,7 +292,8 @@ class RawEventReader:
             raise self._error(f"expected N + 1 = {n + 1} entries for {n} events (from /events/roi), "
                               f"found {self._start.shape[0]}", dataset="/events/start",
                               event=min(n, self._start.shape[0]) - 1 if n else None)
-        first, last = (int(v) for v in self._start[[0, n]]) if n else (int(self._start[0]),) * 2
+        first, last = (int(v) for v in checked.read(self._start, [0, n])) if n else \
+            (int(checked.read(self._start, 0)),) * 2
         if first != 0:
             raise self._error(f"start[0] must be 0, found {first}", dataset="/events/start", event=0)
         self.file_problems: list[str] = []
@@ -349,13 +308,18 @@ class RawEventReader:
                 if self.strict:
                     raise self._error(message, dataset=f"/events/{name}", event=min(n, ds.shape[0]))
                 self.file_problems.append(f"/events/{name}: {message}")
-        self.truth_names = sorted(f["truth"].keys()) if "truth" in f else []
+        truth = checked.group("/truth", required=False)
+        with checked.guard("/truth"):
+            self.truth_names = sorted(truth.keys()) if truth is not None else []
+        self._truth = {}
         for name in self.truth_names:
-            ds = f["truth"][name]
-            if ds.ndim != 1 or ds.shape[0] != n:
-                message = f"expected a 1-D dataset of {n} entries, found shape {ds.shape}"
-                raise self._error(message, dataset=f"/truth/{name}")
-        self.run_info = {k: _decode(v) for k, v in f["run"].attrs.items()} if "run" in f else {}
+            where = f"/truth/{name}"
+            ds = checked.dataset(where, kinds="biuf", ndim=1)
+            if ds.shape[0] != n:
+                raise self._error(f"expected a 1-D dataset of {n} entries (one per event), found shape {ds.shape}",
+                                  dataset=where)
+            self._truth[name] = ds
+        self.run_info = checked.attributes("/run") if checked.group("/run", required=False) is not None else {}
 
     # ------------------------------------------------------------------ basic access
     def __len__(self):
@@ -369,7 +333,7 @@ class RawEventReader:
         return False
 
     def close(self):
-        if self._file is not None:
+        if getattr(self, "_file", None) is not None:
             self._file.close()
             self._file = None
 
@@ -395,7 +359,7 @@ class RawEventReader:
         m = ds.shape[0]
         out = np.full(b - a, fill, dtype=ds.dtype)
         if a < m:
-            out[: min(b, m) - a] = ds[a:min(b, m)]
+            out[: min(b, m) - a] = self._checked.read(ds, np.s_[a:min(b, m)])
         return out
 
     def read_batch(self, a: int, b: int, *, with_truth: bool = True, buffer=None) -> EventBatch:
@@ -408,8 +372,8 @@ class RawEventReader:
         """
         if not 0 <= a <= b <= self._n:
             raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
-        roi = self._roi[a:b]
-        start = self._start[a:b + 1]
+        roi = self._checked.read(self._roi, np.s_[a:b])
+        start = self._checked.read(self._start, np.s_[a:b + 1])
         time_s = self._read_1d(self._time, a, b, np.nan)
         trigger_id = self._read_1d(self._trigger, a, b, -1)
         indices, reasons = find_bad_events(roi, start, self._n_signal, self.grid, first_index=a)
@@ -446,11 +410,12 @@ class RawEventReader:
                     raise ValueError(f"'buffer' gave an array of {memory.dtype} {memory.shape}; expected int16 of at "
                                      f"least {n_pix} values")
                 signal = memory[:n_pix]
-                space = self._signal.id.get_space()
-                space.select_hyperslab((s0,), (n_pix,))
-                self._signal.id.read(h5py.h5s.create_simple((n_pix,)), space, signal)
+                with self._checked.guard(self._signal.name):
+                    space = self._signal.id.get_space()
+                    space.select_hyperslab((s0,), (n_pix,))
+                    self._signal.id.read(h5py.h5s.create_simple((n_pix,)), space, signal)
             else:
-                signal = self._signal[s0:int(start[-1])]
+                signal = self._checked.read(self._signal, np.s_[s0:int(start[-1])])
             new_start = start - s0
         else:
             # gather only the good events' pixel ranges
@@ -458,7 +423,7 @@ class RawEventReader:
             n_pix = np.where(bad, 0, start[1:] - start[:-1])
             if (~bad).any():
                 s0, s1 = int(lo[~bad].min()), int((lo + n_pix)[~bad].max())
-                block = self._signal[s0:s1]
+                block = self._checked.read(self._signal, np.s_[s0:s1])
             else:
                 s0, block = 0, np.zeros(0, np.int16)
             new_start = np.concatenate([[0], np.cumsum(n_pix)]).astype(np.int64)
@@ -467,7 +432,7 @@ class RawEventReader:
             signal = block[lo[owner] + offsets - s0]
         truth = {}
         if with_truth:
-            truth = {name: self._file["truth"][name][a:b] for name in self.truth_names}
+            truth = {name: self._checked.read(self._truth[name], np.s_[a:b]) for name in self.truth_names}
         return EventBatch(roi=roi, start=new_start, signal=signal, time_s=time_s, trigger_id=trigger_id,
                           grid=self.grid, index=np.arange(a, b, dtype=np.int64), bad=bad, truth=truth,
                           validate=False, pedestal_subtracted=self.pedestal_subtracted)
@@ -524,14 +489,14 @@ class RawEventReader:
         missing = sorted(set(names) - set(self.truth_names))
         if missing:
             raise KeyError(f"'{self.path}' has no truth columns {missing}; it has {self.truth_names}")
-        return {name: self._file["truth"][name][start:stop] for name in names}
+        return {name: self._checked.read(self._truth[name], np.s_[start:stop]) for name in names}
 
     def truth_dataset(self, name: str) -> h5py.Dataset:
         """The HDF5 dataset ``/truth/<name>`` itself (for copies made by HDF5 without reading it, e.g.
         :meth:`trackfit.io.table.TableWriter.copy_column`); valid while the reader is open."""
         if name not in self.truth_names:
             raise KeyError(f"'{self.path}' has no truth column {name!r}; it has {self.truth_names}")
-        return self._file["truth"][name]
+        return self._truth[name]
 
     def validate(self, batch_size: int = DEFAULT_BATCH_SIZE) -> list[tuple[int, str]]:
         """Scan the whole file; return every malformed event as (index, reason) (never raises for events)."""
@@ -581,7 +546,7 @@ def _prefetched(read, items, depth: int = 2):
         thread.join()
 
 
-def open_raw(path, *, strict: bool = True) -> RawEventReader:
+def open_raw(path, *, strict: bool = True, allow_external: bool = False) -> RawEventReader:
     """Open a raw event file for streaming.
 
     Parameters
@@ -590,10 +555,17 @@ def open_raw(path, *, strict: bool = True) -> RawEventReader:
     strict : bool
         True (default): the first malformed event raises :class:`RawFormatError`. False: malformed events
         are reported in ``reader.bad_events`` and delivered as flagged empty placeholders.
+    allow_external : bool
+        Read objects whose data come from other files (external links, external storage, virtual datasets with
+        sources elsewhere). Default False: such a file is refused, naming the object and the other file.
 
     Raises
     ------
+    FileNotFoundError
+        No such file.
     RawFormatError
-        Missing group, dataset or attribute; unknown format version; wrong dtype or shape; inconsistent lengths.
+        Not a regular file, not HDF5, data in other files; missing group, dataset or attribute; an attribute of the
+        wrong type (a number stored as text, a boolean or float ``format_version``); absurd geometry; unknown format
+        version; wrong dtype or shape; inconsistent lengths; storage that cannot be read.
     """
-    return RawEventReader(path, strict=strict)
+    return RawEventReader(path, strict=strict, allow_external=allow_external)

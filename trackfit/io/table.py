@@ -24,7 +24,9 @@ import numpy as np
 from ._partial import PartialFileWriter
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 from .energy_label import describe_energy_scale, energy_is_calibrated, energy_scale_source
+from .errors import FileFormatError
 from .kinds import open_kind
+from .structure import CheckedFile, plain_value
 
 __all__ = [
     "EventTable",
@@ -100,26 +102,8 @@ COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
 }
 
 
-class TableFormatError(ValueError):
+class TableFormatError(FileFormatError):
     """An event-table file that does not follow the format; names the file and the dataset."""
-
-    def __init__(self, path, message, *, dataset=None):
-        self.path = str(path)
-        self.dataset = dataset
-        where = f"file '{self.path}'" + (f", dataset '{dataset}'" if dataset is not None else "")
-        super().__init__(f"{where}: {message}")
-
-
-def _decode(value):
-    if isinstance(value, bytes):
-        return value.decode()
-    if isinstance(value, np.ndarray):
-        if value.dtype.kind in "SO":
-            return [v.decode() if isinstance(v, bytes) else v for v in value.tolist()]
-        return value.tolist()
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
 
 
 def _as_column(name, values) -> np.ndarray:
@@ -617,15 +601,24 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
 
 # ---------------------------------------------------------------------- reading
 #: what to tell a user who gives another trackfit file where an event table is expected
-def _read_provenance(group: h5py.Group) -> dict:
-    out = {k: _decode(v) for k, v in group.attrs.items()}
-    for key, item in group.items():
-        if isinstance(item, h5py.Dataset) and item.shape == ():
-            out[key] = _decode(item[()])
+def _read_provenance(checked: CheckedFile) -> dict:
+    group = checked.group("/provenance", required=False)
+    if group is None:
+        return {}
+    out = checked.attributes(group)
+    with checked.guard("/provenance"):
+        names = list(group.keys())
+    for key in names:  # long texts are scalar datasets (see _LONG_TEXT)
+        item = checked.get(f"/provenance/{key}", object)
+        if isinstance(item, h5py.Dataset):
+            with checked.guard(item.name):
+                if item.shape == () and (item.dtype.kind in "SObiuf" and item.dtype.names is None):
+                    out[key] = plain_value(item[()])
     return out
 
 
-def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -> EventTable:
+def read_table(path, columns=None, *, start: int = 0, stop: int | None = None,
+               allow_external: bool = False) -> EventTable:
     """Read an event-table file (format version 2; version-1 files are read with their columns renamed).
 
     Parameters
@@ -635,6 +628,9 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
         Columns to read (default: all, in file order), by their current names (also for version-1 files).
     start, stop : int, optional
         Row range to read (default: all rows).
+    allow_external : bool
+        Read columns whose data come from other files (external links, external storage, virtual datasets with
+        sources elsewhere). Default False: such a file is refused, naming the column and the other file.
 
     Returns
     -------
@@ -647,41 +643,44 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
     ------
     FileNotFoundError
     TableFormatError
-        Not HDF5, wrong format name or version, missing ``/events``, a column that is not a 1-D dataset, or
-        columns of different lengths; the message names the file and the dataset.
+        Not a regular file, not HDF5, data in other files, wrong format name or version (an integer, not a float,
+        boolean or text), missing ``/events``, a column that is not a 1-D numeric dataset, columns of different
+        lengths, an unreadable column order, provenance or storage; the message names the file and the dataset.
     KeyError
         An unknown column name; the message lists the available columns.
     """
     path = Path(path)
-    f, attrs = open_kind(path, FORMAT_NAME, what="event table", error=TableFormatError)
+    f, attrs = open_kind(path, FORMAT_NAME, what="event table", error=TableFormatError, versions=READABLE_VERSIONS,
+                         allow_external=allow_external)
     with f:
-        if "format_version" not in attrs:
-            raise TableFormatError(path, "missing root attribute 'format_version'", dataset="/")
+        checked = CheckedFile(f, path, TableFormatError)
         version = attrs["format_version"]
-        if version not in READABLE_VERSIONS:
-            raise TableFormatError(path, f"unknown format_version {version!r}; this trackfit reads versions "
-                                         f"{list(READABLE_VERSIONS)}", dataset="/")
         rename = V1_COLUMN_NAMES if version == 1 else {}
-        if "events" not in f or not isinstance(f["events"], h5py.Group):
-            raise TableFormatError(path, "missing group", dataset="/events")
-        events = f["events"]
-        order = _decode(events.attrs["column_order"]) if "column_order" in events.attrs else list(events)
-        names_in_file = [n for n in order if n in events] + [n for n in events if n not in order]
+        events = checked.group("/events")
+        order = checked.attributes(events).get("column_order")
+        with checked.guard("/events"):
+            names = list(events)
+        if order is None:
+            order = names
+        elif not isinstance(order, list) or not all(isinstance(n, str) for n in order):
+            checked.fail(f"attribute 'column_order' must be a list of column names (got {order!r:.80})", "/events")
+        names_in_file = [n for n in order if n in names] + [n for n in names if n not in order]
         n_rows = None
+        datasets = {}
         for name in names_in_file:
-            ds = events[name]
             where = f"/events/{name}"
-            if not isinstance(ds, h5py.Dataset):
-                raise TableFormatError(path, "expected a dataset, found a group", dataset=where)
-            if ds.ndim != 1:
-                raise TableFormatError(path, f"expected a 1-D dataset, found shape {ds.shape}", dataset=where)
-            if ds.dtype.kind not in "biuf":
-                raise TableFormatError(path, f"expected a numeric dtype, found {ds.dtype}", dataset=where)
+            ds = checked.dataset(where, kinds="biuf", ndim=1)
+            datasets[name] = ds
             if n_rows is None:
                 n_rows, first = ds.shape[0], name
             elif ds.shape[0] != n_rows:
                 raise TableFormatError(path, f"has {ds.shape[0]} rows but /events/{first} has {n_rows}",
                                        dataset=where)
+        declared = checked.attributes(events).get("n_rows")
+        if declared is not None and (isinstance(declared, bool) or not isinstance(declared, int)
+                                     or declared != (n_rows or 0)):
+            checked.fail(f"attribute 'n_rows' must be the integer number of rows of the columns, {n_rows or 0} "
+                         f"(got {declared!r:.60})", "/events")
         in_file = {rename.get(name, name): name for name in names_in_file}  # current name -> dataset name
         if columns is None:
             wanted = list(in_file)
@@ -693,8 +692,8 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None) -
         n_rows = n_rows or 0
         a, b, _ = slice(start, stop).indices(n_rows)
         b = max(a, b)
-        data = {name: events[in_file[name]][a:b] for name in wanted}
-        provenance = _read_provenance(f["provenance"]) if "provenance" in f else {}
+        data = {name: checked.read(datasets[in_file[name]], np.s_[a:b]) for name in wanted}
+        provenance = _read_provenance(checked)
         if version != FORMAT_VERSION:
             provenance["read_from_format_version"] = version
     return EventTable(data, provenance)
