@@ -14,6 +14,7 @@ import json
 from pathlib import Path
 
 from ..cli import CommandError
+from ..io.errors import FileFormatError
 from ..io.kinds import KINDS as _KNOWN
 from ..io.kinds import open_file
 
@@ -36,15 +37,25 @@ def register(subparsers):
     parser.add_argument("--max-events", type=int, default=None, metavar="N",
                         help="summarise only the first N events (rows of a table) (default: all)")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+    parser.add_argument("--allow-external-storage", action="store_true",
+                        help="read data the file takes from other files (HDF5 external links, external storage, "
+                        "virtual datasets); refused unless given, so that a file cannot make trackfit read another "
+                        "one unnoticed")
     parser.set_defaults(func=run)
 
 
-def file_kind(path) -> str:
-    """The ``trackfit_format`` root attribute of a file; errors name the file and say what was expected."""
-    f, attrs = open_file(path, what="file", error=lambda p, message: CommandError(f"'{p}' is {message}"))
+def file_header(path, *, allow_external: bool = False) -> dict:
+    """The root attributes of a file as plain values, read through the checks every reader makes (a regular file,
+    HDF5, sound global heaps, no data in other files unless allowed); errors name the file."""
+    f, attrs = open_file(path, what="file", error=FileFormatError, allow_external=allow_external)
     f.close()
-    kind = attrs.get("trackfit_format")
-    if kind not in KINDS:
+    return attrs
+
+
+def file_kind(path, *, allow_external: bool = False) -> str:
+    """The ``trackfit_format`` root attribute of a file; errors name the file and say what was expected."""
+    kind = file_header(path, allow_external=allow_external).get("trackfit_format")
+    if not isinstance(kind, str) or kind not in KINDS:
         found = "no trackfit_format attribute" if kind is None else f"trackfit_format {kind!r}"
         raise CommandError(f"'{path}' is not a trackfit file this version knows: expected a root attribute "
                            f"trackfit_format of {list(KINDS)}, found {found}")
@@ -54,19 +65,20 @@ def file_kind(path) -> str:
 def run(args) -> int:
     if args.max_events is not None and args.max_events < 1:
         raise CommandError(f"--max-events must be >= 1 (got {args.max_events})")
-    kind = file_kind(args.file)
+    kind = file_kind(args.file, allow_external=args.allow_external_storage)
     if kind == "raw-events":
         from ..io.summary import summarize_raw
 
-        summary = summarize_raw(args.file, max_events=args.max_events)
-        print(json.dumps(summary.as_dict(), indent=2) if args.json else summary.as_text())
+        summary = summarize_raw(args.file, max_events=args.max_events, allow_external=args.allow_external_storage)
+        print(json.dumps(summary.as_dict(), indent=2, default=_json_value) if args.json else summary.as_text())
     elif kind == "event-table":
         _table(args)
     elif kind == "pixel-map":
         from ..io.pixelmap import read_pixel_map
 
-        pixel_map = read_pixel_map(args.file)
-        print(json.dumps(pixel_map.summary(), indent=2, default=float) if args.json else pixel_map.summary_text())
+        pixel_map = read_pixel_map(args.file, allow_external=args.allow_external_storage)
+        print(json.dumps(pixel_map.summary(), indent=2, default=_json_value) if args.json
+              else pixel_map.summary_text())
     elif kind == "response":
         _response(args)
     else:
@@ -74,12 +86,15 @@ def run(args) -> int:
     return 0
 
 
-def _header(path) -> dict:
-    import h5py
+def _header(args) -> dict:
+    return file_header(args.file, allow_external=args.allow_external_storage)
 
-    with h5py.File(path, "r") as f:
-        return {k: (v.decode() if isinstance(v, bytes) else v.item() if hasattr(v, "item") else v)
-                for k, v in f.attrs.items()}
+
+def _json_value(value):
+    """JSON form of what ``json`` does not know: arrays and numpy numbers as their values, the rest as text."""
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    return str(value)
 
 
 def _file_lines(path, header) -> list[str]:
@@ -99,13 +114,13 @@ def _short(value) -> str:
 def _table(args) -> None:
     from ..io.table import read_table
 
-    table = read_table(args.file, stop=args.max_events)
-    header = _header(args.file)
+    table = read_table(args.file, stop=args.max_events, allow_external=args.allow_external_storage)
+    header = _header(args)
     provenance = table.provenance
     if args.json:
         print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
                           "header": header, "n_rows_read": len(table), "summary": table.summary_dict(),
-                          "provenance": provenance}, indent=2, default=str))
+                          "provenance": provenance}, indent=2, default=_json_value))
         return
     lines = _file_lines(args.file, header)
     if args.max_events is not None:
@@ -119,13 +134,13 @@ def _table(args) -> None:
 def _calibration(args) -> None:
     from ..analysis import Calibration
 
-    calibration = Calibration.load(args.file)
-    header = _header(args.file)
+    calibration = Calibration.load(args.file, allow_external=args.allow_external_storage)
+    header = _header(args)
     if args.json:
         parts = {name: {"summary": repr(getattr(calibration, name)),
                         "provenance": calibration.provenance.get(name, {})} for name in calibration.parts()}
         print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
-                          "header": header, "parts": parts}, indent=2, default=str))
+                          "header": header, "parts": parts}, indent=2, default=_json_value))
         return
     print("\n".join([*_file_lines(args.file, header), repr(calibration)]))
 
@@ -133,10 +148,10 @@ def _calibration(args) -> None:
 def _response(args) -> None:
     from ..response import DetectorResponse
 
-    response = DetectorResponse.load(args.file)
-    header = _header(args.file)
+    response = DetectorResponse.load(args.file, allow_external=args.allow_external_storage)
+    header = _header(args)
     if args.json:
         print(json.dumps({"path": str(args.file), "file_size_bytes": Path(args.file).stat().st_size,
-                          "header": header, **response.summary_dict()}, indent=2, default=str))
+                          "header": header, **response.summary_dict()}, indent=2, default=_json_value))
         return
     print("\n".join([*_file_lines(args.file, header), response.summary()]))

@@ -38,6 +38,8 @@ class RawSummary:
     file_problems: list = field(default_factory=list)
     pedestal_subtracted: bool = True
     trigger_mode: str = "self"
+    #: scanned events that are well formed but have no ROI pixels (a file may declare many: say so)
+    n_empty: int = 0
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -54,7 +56,8 @@ class RawSummary:
             f"chip          {g['n_columns']} x {g['n_rows']} hexagonal pixels, pitch {g['pitch_mm'] * 1000:.1f} um, "
             f"shifted rows: {g['shifted_rows']}",
             f"events        {self.n_events}"
-            + (f" ({self.n_scanned} scanned)" if self.n_scanned < self.n_events else ""),
+            + (f" ({self.n_scanned} scanned)" if self.n_scanned < self.n_events else "")
+            + (f", {self.n_empty} of them empty (no ROI pixels)" if self.n_empty else ""),
             f"pixels        {self.n_pixels_total} ROI pixels in the file",
             "signal        " + ("pedestal-subtracted pulse heights" if self.pedestal_subtracted
                                 else "raw ADC values, pedestals included (reconstruct with a pixel map)"),
@@ -109,20 +112,24 @@ def _fmt(values):
     return " ".join(f"{v:.6g}" for v in values)
 
 
-def summarize_raw(path, *, max_events: int | None = None, batch_size: int = DEFAULT_BATCH_SIZE) -> RawSummary:
+def summarize_raw(path, *, max_events: int | None = None, batch_size: int = DEFAULT_BATCH_SIZE,
+                  allow_external: bool = False) -> RawSummary:
     """Scan a raw event file in batches (bounded memory) and summarise it.
 
-    Malformed events do not stop the scan: they are listed in ``bad_events``.
+    Malformed events do not stop the scan: they are listed in ``bad_events``; well-formed events without ROI
+    pixels are counted (``n_empty``). ``allow_external``: see :func:`~trackfit.io.raw.open_raw`.
     """
     path = Path(path)
-    with open_raw(path, strict=False) as reader:
+    with open_raw(path, strict=False, allow_external=allow_external) as reader:
         stop = len(reader) if max_events is None else min(int(max_events), len(reader))
         n_pix_parts, sums, peak, t_first, t_last = [], [], np.iinfo(np.int16).min, np.nan, np.nan
+        n_empty = 0
         for batch in reader.iter_batches(batch_size, stop=stop, with_truth=False, prefetch=True):
             batch = batch.compact()
             n_pix = batch.n_pixels
             n_pix_parts.append(n_pix)
             nonempty = n_pix > 0
+            n_empty += int(np.count_nonzero(~nonempty & ~batch.bad))
             event_sum = np.zeros(len(batch))
             if nonempty.any():
                 event_sum[nonempty] = np.add.reduceat(batch.signal.astype(np.int64), batch.start[:-1][nonempty])
@@ -153,4 +160,5 @@ def summarize_raw(path, *, max_events: int | None = None, batch_size: int = DEFA
             file_problems=list(reader.file_problems),
             pedestal_subtracted=reader.pedestal_subtracted,
             trigger_mode=reader.trigger_mode,
+            n_empty=n_empty,
         )
