@@ -310,7 +310,7 @@ class DetectorResponse:
         f, attrs = open_kind(path, RESPONSE_FORMAT, what="response file", error=ResponseFormatError,
                              versions=(RESPONSE_FORMAT_VERSION,), allow_external=allow_external)
         with f:
-            checked = CheckedFile(f, path, ResponseFormatError)
+            checked = CheckedFile(f, path, ResponseFormatError, allow_external=allow_external)
             fail = checked.failer("/")
             missing = [k for k in (*_ROOT_TEXT, "chip_area_cm2") if k not in attrs]
             if missing:

@@ -228,7 +228,7 @@ class Calibration:
         f, _ = open_kind(path, CALIBRATION_FORMAT, what="calibration file", error=CalibrationFormatError,
                          versions=(CALIBRATION_FORMAT_VERSION,), allow_external=allow_external)
         with f:
-            checked = CheckedFile(f, path, CalibrationFormatError)
+            checked = CheckedFile(f, path, CalibrationFormatError, allow_external=allow_external)
             with checked.guard("/"):
                 names = list(f)
             unknown = sorted(set(names) - set(_PARTS))

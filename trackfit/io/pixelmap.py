@@ -359,7 +359,7 @@ def read_pixel_map(path, *, allow_external: bool = False) -> PixelMap:
     f, attrs = open_kind(path, FORMAT_NAME, what="pixel map", error=PixelMapFormatError, versions=(FORMAT_VERSION,),
                          allow_external=allow_external)
     with f:
-        checked = CheckedFile(f, path, PixelMapFormatError)
+        checked = CheckedFile(f, path, PixelMapFormatError, allow_external=allow_external)
         checked.group("/geometry")
         grid = grid_from_attributes(checked.attributes("/geometry"), checked.failer("/geometry"))
         arrays = {}

@@ -249,7 +249,7 @@ class RawEventReader:
         self._file = None
         self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file", error=RawFormatError,
                                       versions=(FORMAT_VERSION,), allow_external=allow_external)
-        self._checked = CheckedFile(self._file, self.path, RawFormatError)
+        self._checked = CheckedFile(self._file, self.path, RawFormatError, allow_external=allow_external)
         try:
             self._check_header(attrs)
         except Exception:

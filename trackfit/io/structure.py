@@ -186,12 +186,15 @@ class CheckedFile:
         How errors name the file.
     error : type
         The reader's error class, called as ``error(path, message, dataset=name)``.
+    allow_external : bool
+        Follow external links (refused by default, like every object with data in another file).
     """
 
-    def __init__(self, f: h5py.File, path, error):
+    def __init__(self, f: h5py.File, path, error, *, allow_external: bool = False):
         self.file = f
         self.path = path
         self.error = error
+        self.allow_external = allow_external
 
     def fail(self, message, where="/", **extra):
         raise self.error(self.path, message, dataset=where, **extra)
@@ -235,7 +238,7 @@ class CheckedFile:
                 if required:
                     self.fail(f"missing {what}", where)
                 return None
-            if isinstance(link, h5py.ExternalLink):
+            if isinstance(link, h5py.ExternalLink) and not self.allow_external:
                 self.fail(external_data_message(f"'{link.filename}' (an external link to its object "
                                                 f"'{link.path}')"), where)
             if isinstance(link, h5py.SoftLink):

@@ -653,7 +653,7 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None,
     f, attrs = open_kind(path, FORMAT_NAME, what="event table", error=TableFormatError, versions=READABLE_VERSIONS,
                          allow_external=allow_external)
     with f:
-        checked = CheckedFile(f, path, TableFormatError)
+        checked = CheckedFile(f, path, TableFormatError, allow_external=allow_external)
         version = attrs["format_version"]
         rename = V1_COLUMN_NAMES if version == 1 else {}
         events = checked.group("/events")
