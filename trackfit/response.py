@@ -84,10 +84,11 @@ class ResponseFormatError(FileFormatError):
     bad entry (``index``, an energy index)."""
 
     def __init__(self, path, message, *, dataset=None, index=None, event=None):
-        self.index = index
-        if index is not None:
-            message = f"energy index {index}: {message}"
         super().__init__(path, message, dataset=dataset, event=event)
+        self.index = index
+        if index is not None:  # "file '<path>', dataset '<name>', energy index N: <message>"
+            location = str(self)[:-len(str(message)) - 2]
+            self.args = (f"{location}, energy index {index}: {message}",)
 
 
 def raw_bytes_per_event(roi_pixels) -> np.ndarray | float:

@@ -11,8 +11,7 @@ list), and reports a collection whose objects do not tile it.
 
 Collections are searched for where trackfit's writers put them: the first and the last :data:`SCAN_BYTES` of the
 file (the root attributes are written when a file is created, the closing attributes at its end), so the check
-reads at most twice that, whatever the file size. A damaged collection elsewhere is not seen (``docs/reliability.md``
-says what remains).
+reads at most twice that, whatever the file size. A damaged collection elsewhere is not seen.
 """
 
 from __future__ import annotations

@@ -601,10 +601,10 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
 
 # ---------------------------------------------------------------------- reading
 #: what to tell a user who gives another trackfit file where an event table is expected
-def _read_provenance(checked: CheckedFile) -> dict:
-    group = checked.group("/provenance", required=False)
-    if group is None:
-        return {}
+def _read_provenance(group: h5py.Group, checked: CheckedFile | None = None) -> dict:
+    """The ``/provenance`` group as a dict: its attributes and its scalar datasets (long texts)."""
+    if checked is None:
+        checked = CheckedFile(group.file, group.file.filename, TableFormatError)
     out = checked.attributes(group)
     with checked.guard("/provenance"):
         names = list(group.keys())
@@ -693,7 +693,8 @@ def read_table(path, columns=None, *, start: int = 0, stop: int | None = None,
         a, b, _ = slice(start, stop).indices(n_rows)
         b = max(a, b)
         data = {name: checked.read(datasets[in_file[name]], np.s_[a:b]) for name in wanted}
-        provenance = _read_provenance(checked)
+        group = checked.group("/provenance", required=False)
+        provenance = _read_provenance(group, checked) if group is not None else {}
         if version != FORMAT_VERSION:
             provenance["read_from_format_version"] = version
     return EventTable(data, provenance)
