@@ -119,6 +119,7 @@ FLAG_ERRORS = [
     (["reconstruct", "{raw}", "-o", "{out}", "--threads", "0"], "--threads"),
     (["reconstruct", "{raw}", "-o", "{out}", "--batch-size", "0"], "--batch-size"),
     (["info", "{raw}", "--max-events", "0"], "--max-events"),
+    (["info", "{raw}", "--open-timeout", "0"], "--open-timeout"),
     (["show", "{raw}", "--event", "-1", "-o", "{out}"], "--event"),
 ]
 

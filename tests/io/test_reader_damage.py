@@ -369,3 +369,13 @@ def test_errors_cross_process_boundaries_intact(tmp_path):
     response = pickle.loads(pickle.dumps(ResponseFormatError("r.h5", "energies must increase", dataset="/e",
                                                              index=2)))
     assert response.index == 2 and "energy index 2: energies must increase" in str(response)
+
+
+def test_a_file_whose_structure_loops_the_hdf5_library_is_refused_by_the_time_limit(valid, tmp_path):
+    from trackfit.io.probe import probe_structure
+
+    # the damaged heap, but without the check that catches it beforehand: the child's time limit must end it
+    bad = _damage_heap_object(valid["raw"], tmp_path / "loops.h5")
+    with pytest.raises(FileFormatError, match=r"did not finish reading the file's structure within 3 s"):
+        probe_structure(bad, error=FileFormatError, timeout_s=3)
+    probe_structure(valid["raw"], error=FileFormatError, timeout_s=60)  # a sound file passes

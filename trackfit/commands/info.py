@@ -16,7 +16,8 @@ from pathlib import Path
 from ..cli import CommandError
 from ..io.errors import FileFormatError
 from ..io.kinds import KINDS as _KNOWN
-from ..io.kinds import open_file
+from ..io.kinds import check_before_open, open_file
+from ..io.probe import DEFAULT_TIMEOUT_S, probe_structure
 
 #: file kinds ``trackfit info`` knows, by their ``trackfit_format`` attribute
 KINDS = tuple(_KNOWN)
@@ -37,6 +38,9 @@ def register(subparsers):
     parser.add_argument("--max-events", type=int, default=None, metavar="N",
                         help="summarise only the first N events (rows of a table) (default: all)")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+    parser.add_argument("--open-timeout", type=float, default=DEFAULT_TIMEOUT_S, metavar="SECONDS",
+                        help="seconds the HDF5 library may take to read the file's structure (in a separate "
+                        "process) before the file is refused as damaged")
     parser.add_argument("--allow-external-storage", action="store_true",
                         help="read data the file takes from other files (HDF5 external links, external storage, "
                         "virtual datasets); refused unless given, so that a file cannot make trackfit read another "
@@ -65,6 +69,11 @@ def file_kind(path, *, allow_external: bool = False) -> str:
 def run(args) -> int:
     if args.max_events is not None and args.max_events < 1:
         raise CommandError(f"--max-events must be >= 1 (got {args.max_events})")
+    if not args.open_timeout > 0:
+        raise CommandError(f"--open-timeout must be > 0 seconds (got {args.open_timeout})")
+    # users point info at anything: the file's structure is first read in a child process with a time limit
+    check_before_open(args.file, what="file", error=FileFormatError)
+    probe_structure(args.file, error=FileFormatError, timeout_s=args.open_timeout)
     kind = file_kind(args.file, allow_external=args.allow_external_storage)
     if kind == "raw-events":
         from ..io.summary import summarize_raw

@@ -24,8 +24,8 @@ from .structure import (
     plain_value,
 )
 
-__all__ = ["KINDS", "check_format_version", "check_regular_file", "open_file", "open_kind", "plain_attribute",
-           "wrong_kind_hint"]
+__all__ = ["KINDS", "check_before_open", "check_format_version", "check_regular_file", "open_file", "open_kind",
+           "plain_attribute", "wrong_kind_hint"]
 
 #: ``trackfit_format`` value -> (what the file is, what to do with it)
 KINDS: dict[str, tuple[str, str]] = {
@@ -78,6 +78,21 @@ def check_regular_file(path, *, what: str, error) -> Path:
                       "(copy streamed data into a file first)")
 
 
+def check_before_open(path, *, what: str, error) -> Path:
+    """The checks made before the HDF5 library sees a file: a regular file (:func:`check_regular_file`) whose global
+    heap collections are sound (:func:`~trackfit.io.heapcheck.damaged_global_heaps`). Returns the path."""
+    path = check_regular_file(path, what=what, error=error)
+    try:
+        damaged = damaged_global_heaps(path)
+    except OSError as err:
+        raise error(path, f"cannot be read ({err.strerror or err})") from None
+    if damaged:
+        offset, problem = damaged[0]
+        raise error(path, f"damaged HDF5 file: the global heap collection at byte {offset} (where its text values "
+                          f"are stored) is inconsistent: {problem}; the HDF5 library could loop forever on it")
+    return path
+
+
 def open_file(path, *, what: str, error, allow_external: bool = False) -> tuple[h5py.File, dict]:
     """Open a file for reading as HDF5; returns it (the caller closes it) and its root attributes as plain values.
 
@@ -89,15 +104,7 @@ def open_file(path, *, what: str, error, allow_external: bool = False) -> tuple[
     Raises ``FileNotFoundError("<what> '<path>' does not exist")``, or ``error(path, "not a readable HDF5 file
     (...)")`` and ``error(path, message, dataset=name)`` (see :func:`open_kind`).
     """
-    path = check_regular_file(path, what=what, error=error)
-    try:
-        damaged = damaged_global_heaps(path)
-    except OSError as err:
-        raise error(path, f"cannot be read ({err.strerror or err})") from None
-    if damaged:
-        offset, problem = damaged[0]
-        raise error(path, f"damaged HDF5 file: the global heap collection at byte {offset} (where its text values "
-                          f"are stored) is inconsistent: {problem}; the HDF5 library could loop forever on it")
+    path = check_before_open(path, what=what, error=error)
     try:
         f = h5py.File(path, "r")
     except H5PY_ERRORS as err:
