@@ -107,7 +107,10 @@ CATALOGUE = [
     ("calibration", "attribute /energy_scale:coefficients -> text", "/energy_scale", "'coefficients' must be a "
                                                                                      "non-empty array of numbers"),
     ("calibration", "attribute /energy_scale:provenance -> text", "/energy_scale", "must be JSON text"),
-    ("calibration", "dataset /gain_map/counts -> huge-shape", "/gain_map/counts", "expected at most"),
+    ("calibration", "dataset /gain_map/counts -> huge-shape", "/gain_map/counts", "expected a 2-D array"),
+    ("calibration", "dataset /gain_map/counts -> scalar", "/gain_map/counts", "expected a 2-D array"),
+    ("calibration", "dataset /energy_scale/line_energy_kev -> 2-d", "/energy_scale/line_energy_kev",
+     "expected a 1-D array"),
     ("calibration", "dataset /gain_map/counts -> vlen-strings", "/gain_map/counts", "dtype"),
     ("calibration", "dataset /energy_scale/line_energy_kev -> soft-link-loop", "/energy_scale/line_energy_kev",
      "cannot be read"),

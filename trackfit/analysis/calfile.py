@@ -323,10 +323,9 @@ class _Part:
         self.attrs = checked.attributes(self.group)
         self.fail = checked.failer(self.where)
 
-    def array(self, name: str) -> np.ndarray:
-        ds = self.checked.dataset(f"{self.where}/{name}", kinds="biuf", max_size=_MAX_PART_VALUES)
-        if ds.ndim == 0:
-            self.checked.fail("expected an array, found a scalar", ds.name)
+    def array(self, name: str, ndim: int = 1) -> np.ndarray:
+        """A numeric dataset of ``ndim`` dimensions as float64."""
+        ds = self.checked.dataset(f"{self.where}/{name}", kinds="biuf", ndim=ndim, max_size=_MAX_PART_VALUES)
         return np.asarray(self.checked.read(ds), dtype=float)
 
     def numbers(self, key: str) -> tuple:
@@ -362,8 +361,8 @@ class _Part:
 
 
 def _read_gain_map(part) -> GainMap:
-    return GainMap(**{name: part.array(name) for name in ("x_edges_mm", "y_edges_mm", "relative_gain",
-                                                          "relative_gain_err", "counts")},
+    return GainMap(**{name: part.array(name, ndim=1 if name.endswith("edges_mm") else 2)
+                      for name in ("x_edges_mm", "y_edges_mm", "relative_gain", "relative_gain_err", "counts")},
                    reference_peak=part.real("reference_peak"), min_counts=part.integer("min_counts"),
                    line=part.text("line"), position=_position(part.text("position")))
 
@@ -412,7 +411,8 @@ def _write_spurious(group, spurious: SpuriousMap):
 
 
 def _read_spurious(part) -> SpuriousMap:
-    return SpuriousMap(**{name: part.array(name) for name in _SPURIOUS_DATASETS},
+    return SpuriousMap(**{name: part.array(name, ndim=1 if name in ("energy_kev", "x_edges_mm", "y_edges_mm") else 3)
+                          for name in _SPURIOUS_DATASETS},
                        position=_position(part.text("position")))
 
 
