@@ -19,6 +19,8 @@ import file_damage as damage
 import h5py
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from trackfit.analysis.calfile import CalibrationFormatError
 from trackfit.cli import main
@@ -382,3 +384,30 @@ def test_a_file_whose_structure_loops_the_hdf5_library_is_refused_by_the_time_li
     with pytest.raises(FileFormatError, match=r"did not finish reading the file's structure within 3 s"):
         probe_structure(bad, error=FileFormatError, timeout_s=3)
     probe_structure(valid["raw"], error=FileFormatError, timeout_s=60)  # a sound file passes
+
+
+@settings(max_examples=60, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(value=st.one_of(st.integers(-2**63, 2**63 - 1), st.floats(), st.booleans(), st.text(max_size=5),
+                       st.lists(st.integers(-5, 5), min_size=1, max_size=3)))
+def test_geometry_attributes_are_accepted_only_as_numbers_of_the_right_kind(valid, tmp_path, value):
+    """Whatever is stored as n_columns: a reader accepts exactly an integer from 1 to the bound, stored as one (the
+    expectation uses Python's own number types, not the reader's checks)."""
+    from trackfit.io.structure import MAX_PIXELS_PER_SIDE
+
+    path = tmp_path / "g.h5"
+    shutil.copyfile(valid["raw"], path)
+    stored = np.array(value) if isinstance(value, list) else value
+    with h5py.File(path, "a") as f:
+        f["geometry"].attrs["n_columns"] = stored
+    valid_count = type(value) is int and 1 <= value <= MAX_PIXELS_PER_SIDE
+    try:
+        with open_raw(path) as reader:
+            reader.read_all()
+        refused_for = None
+    except RawFormatError as err:
+        refused_for = err.dataset
+    if valid_count:  # a narrower chip than the events' ROIs is refused for the events, never for the attribute
+        assert refused_for is None or refused_for.startswith("/events/"), (value, refused_for)
+        assert value < damage.GRID.n_columns or refused_for is None, value
+    else:
+        assert refused_for == "/geometry", (value, refused_for)
