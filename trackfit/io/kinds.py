@@ -74,8 +74,8 @@ def check_regular_file(path, *, what: str, error) -> Path:
     kind = ("a directory" if stat.S_ISDIR(mode) else "a named pipe (FIFO)" if stat.S_ISFIFO(mode)
             else "a character device" if stat.S_ISCHR(mode) else "a block device" if stat.S_ISBLK(mode)
             else "a socket" if stat.S_ISSOCK(mode) else "not a regular file")
-    raise error(path, f"is {kind}, not a regular file: trackfit reads {what}s stored as HDF5 files on a disk "
-                      "(copy streamed data into a file first)")
+    raise error(path, f"is {kind}, not a regular file: a {what} must be an HDF5 file on a disk, not a pipe, device "
+                      "or folder (copy streamed data into a file first)")
 
 
 def check_before_open(path, *, what: str, error) -> Path:
