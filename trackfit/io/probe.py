@@ -5,8 +5,9 @@ caught cheaply beforehand by :mod:`trackfit.io.heapcheck`; others may exist), an
 interrupt a loop in compiled code. ``trackfit info``, which users point at anything, therefore walks the file's
 metadata first in a ``spawn`` child process (numba's OpenMP layer hangs forked children): the root and every
 object's attributes, every object's kind, every dataset's dtype, shape and storage layout, but no data. When the
-child has not finished within the time limit it is killed and the file refused. Errors of the walk are not judged
-here: the reader that opens the file next reports them in its own words.
+child has not finished within the time limit it is killed and the file refused; when it crashed (some damaged attribute
+datatypes make the library itself fail with a segmentation fault) the file is refused too. Errors of the walk are
+not judged here: the reader that opens the file next reports them in its own words.
 """
 
 from __future__ import annotations
@@ -48,7 +49,7 @@ def _child(path) -> None:
 
 def probe_structure(path, *, error, timeout_s: float = DEFAULT_TIMEOUT_S) -> None:
     """Walk the metadata of ``path`` (:func:`walk_structure`) in a spawn child; refuse the file when the child has
-    not finished within ``timeout_s`` seconds.
+    not finished within ``timeout_s`` seconds or was killed by a signal (a crash of the HDF5 library).
 
     Raises
     ------
@@ -64,4 +65,8 @@ def probe_structure(path, *, error, timeout_s: float = DEFAULT_TIMEOUT_S) -> Non
         process.join()
         raise error(path, f"the HDF5 library did not finish reading the file's structure within {timeout_s:g} s "
                           "(damaged metadata can send it into an endless loop); the file was not opened")
+    code = process.exitcode
     process.close()
+    if code is not None and code < 0:
+        raise error(path, f"the HDF5 library crashed (signal {-code}) reading the file's structure: the file's "
+                          "metadata is damaged; the file was not opened")
