@@ -10,8 +10,11 @@ Conventions every subcommand follows:
 * Errors name what the user typed: a flag (``--bins``), never the Python parameter behind it (``n_bins``). Commands
   check flag values before calling the library where the library's name would be ambiguous, and wrap library
   calls in :func:`flags_for_parameters`, which rewrites a quoted parameter name in a ``ValueError`` into its flag.
-* Bad input never shows a traceback: handlers raise :class:`CommandError` (or a builtin error that :func:`main`
-  reports as one line on stderr, exit status 2).
+* Bad input and problems of the environment never show a traceback: handlers raise :class:`CommandError` (or a
+  builtin error that :func:`main` reports as one line on stderr, exit status 2: our file-format errors are
+  ``ValueError``, every operating-system error, including our write errors, is an ``OSError``). Any other exception
+  is a defect of trackfit: one line saying so, exit status 3. ``trackfit --debug COMMAND`` or ``TRACKFIT_DEBUG=1``
+  adds the traceback.
 """
 
 from __future__ import annotations
@@ -105,13 +108,49 @@ def build_parser() -> argparse.ArgumentParser:
         "with a hexagonal-pixel readout.",
     )
     parser.add_argument("--version", action="version", version=f"trackfit {_version()}")
+    parser.add_argument("--debug", action="store_true",
+                        help=f"show the Python traceback of an error (also: {DEBUG_VARIABLE}=1 in the environment)")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=ArgumentParser)
     for name in COMMAND_MODULES:
         importlib.import_module(f"trackfit.commands.{name}").register(subparsers)
     return parser
 
 
+#: environment variable that shows the traceback of every error, like the global ``--debug`` flag
+DEBUG_VARIABLE = "TRACKFIT_DEBUG"
+
+#: errors of the input or the environment: one line on stderr, exit status 2 (``OSError`` covers the file errors
+#: of the readers and writers: missing, permission denied, read-only, no space left, is a directory, ...)
+EXPECTED_ERRORS = (CommandError, OSError, ValueError, KeyError, IndexError, ImportError, MemoryError)
+
+#: exit status of an input or environment error, and of an internal error (a defect of trackfit)
+EXIT_ERROR, EXIT_INTERNAL = 2, 3
+
+
+def describe_error(err: BaseException) -> str:
+    """One line that says what went wrong, for a user: the message of our own errors, the path and the reason of
+    an operating-system error (``'out/x.json': Read-only file system``), the key of a missing key."""
+    if isinstance(err, KeyError) and err.args:
+        return str(err.args[0])
+    if isinstance(err, MemoryError):
+        return f"out of memory{': ' + str(err) if str(err) else ''} (try fewer events per batch or fewer workers)"
+    if isinstance(err, OSError) and err.strerror and err.filename is not None:
+        if f"'{err.filename}'" in err.strerror:  # our own messages name the path (and the flag) already
+            return err.strerror
+        target = f"'{err.filename}'" + (f" -> '{err.filename2}'" if err.filename2 is not None else "")
+        return f"{target}: {err.strerror}"
+    return str(err)
+
+
 def main(argv=None) -> int:
+    """Run the ``trackfit`` command line; returns the exit status.
+
+    Exit status 0: done; 2: bad input or a problem of the environment (one line on stderr, no traceback);
+    3: an internal error of trackfit (one line asking for a report); 130: interrupted. The global ``--debug`` flag
+    (before the subcommand) or ``TRACKFIT_DEBUG=1`` also prints the traceback.
+    """
+    import os
+
     argv = sys.argv[1:] if argv is None else list(argv)
     if argv == ["--version"]:  # answered before any subcommand (and numba) is imported
         print(f"trackfit {_version()}")
@@ -121,23 +160,34 @@ def main(argv=None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    debug = args.debug or os.environ.get(DEBUG_VARIABLE, "").strip().lower() not in ("", "0", "false", "no")
+    command = f"trackfit {args.command}"
     try:
         result = args.func(args)
-    except (CommandError, FileNotFoundError, FileExistsError, ValueError, KeyError, IndexError, ImportError) as err:
-        message = err.args[0] if isinstance(err, KeyError) and err.args else err
-        print(f"trackfit {args.command}: error: {message}", file=sys.stderr)
-        return 2
-    except OSError as err:
-        from .io.errors import FileWriteError
-
-        if not isinstance(err, FileWriteError):  # a writer that could not write: full disk, permission denied, ...
-            raise
-        print(f"trackfit {args.command}: error: {err}", file=sys.stderr)
-        return 2
     except KeyboardInterrupt:
-        print(f"trackfit {args.command}: interrupted", file=sys.stderr)
+        print(f"{command}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader of our output went away (trackfit info ... | head): nothing to report
+        with contextlib.suppress(OSError):
+            sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - keeps Python from failing again at exit
+        return 1
+    except EXPECTED_ERRORS as err:
+        _print_traceback(debug)
+        print(f"{command}: error: {describe_error(err)}", file=sys.stderr)
+        return EXIT_ERROR
+    except Exception as err:  # a defect of trackfit: say so in one line, the traceback on request
+        _print_traceback(debug)
+        print(f"{command}: internal error: {type(err).__name__}: {describe_error(err)} (rerun with --debug for "
+              "the traceback; please report it)", file=sys.stderr)
+        return EXIT_INTERNAL
     return int(result or 0)
+
+
+def _print_traceback(debug: bool) -> None:
+    if debug:
+        import traceback
+
+        traceback.print_exc(file=sys.stderr)
 
 
 if __name__ == "__main__":  # pragma: no cover

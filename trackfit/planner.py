@@ -471,9 +471,9 @@ class ObservationPlan:
                 "designs": {plan.name: plan.to_dict() for plan in self.designs}}
 
     def write_json(self, path) -> Path:
-        path = Path(path)
-        path.write_text(json.dumps(self.to_dict(), indent=2))
-        return path
+        from .io.whole_files import write_text_whole
+
+        return write_text_whole(path, json.dumps(self.to_dict(), indent=2))
 
     def to_markdown(self) -> str:
         target = self.observation.target_mdp

@@ -143,15 +143,16 @@ def save_plan_figures(plan, folder) -> list[Path]:
     """Write :data:`FIGURE_NAMES` into ``folder`` (made if needed); returns their paths."""
     import matplotlib.pyplot as plt
 
+    from .io.whole_files import save_figure_whole
+
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     figures = (plot_mdp_vs_exposure(plan),
                plot_response_curves([p.response for p in plan.designs], band_kev=plan.observation.band_kev,
                                     names=[p.name for p in plan.designs]),
                plot_detected_spectra(plan))
-    paths = []
-    for fig, name in zip(figures, FIGURE_NAMES, strict=True):
-        fig.savefig(folder / name, dpi=120)
-        plt.close(fig)
-        paths.append(folder / name)
-    return paths
+    try:
+        return [save_figure_whole(fig, folder / name, dpi=120) for fig, name in zip(figures, FIGURE_NAMES, strict=True)]
+    finally:
+        for fig in figures:
+            plt.close(fig)

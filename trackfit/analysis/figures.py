@@ -32,11 +32,11 @@ def _axes(ax, figsize=(6.0, 4.2)):
 
 
 def save_figure(fig, path) -> None:
-    """Save and close a figure (closing keeps memory flat when many figures are written)."""
-    import matplotlib.pyplot as plt
+    """Save and close a figure (closing keeps memory flat when many figures are written); the file is written whole
+    or not at all (:func:`trackfit.io.whole_files.save_figure_whole`)."""
+    from ..io.whole_files import save_figure_whole
 
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
+    save_figure_whole(fig, path, dpi=120)
 
 
 def plot_spectrum_fit(fit, *, ax=None, xlabel: str = "pulse height [ADC]"):

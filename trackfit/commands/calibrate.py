@@ -153,9 +153,11 @@ def _run(args) -> int:
     if not (args.flat_field or args.line or args.unpolarized or args.polarized):
         raise CommandError("nothing to calibrate: give --flat-field, --line, --unpolarized and/or --polarized")
     _check_flags(args)
-    output = Path(args.output)
-    if output.exists() and not args.overwrite:
-        raise FileExistsError(f"'{output}' exists; pass --overwrite to replace it")
+    from ..io.whole_files import check_output_file, make_output_folder
+
+    output = check_output_file(args.output, flag="-o/--output", overwrite=args.overwrite)
+    if args.figures:  # checked before the fits, which take a while
+        make_output_folder(args.figures, flag="--figures")
     read = _Tables()
     flat = []
     for spec in args.flat_field:
@@ -227,8 +229,6 @@ def _print_report(calibration, report):
 
 def _figures(calibration, report, out: Path, polarized=()):
     from ..analysis import figures
-
-    out.mkdir(parents=True, exist_ok=True)
     if report.flat_field_fit is not None:
         figures.save_figure(figures.plot_spectrum_fit(report.flat_field_fit,
                                                       xlabel="gain-corrected pulse height [ADC]"),

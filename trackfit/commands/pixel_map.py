@@ -65,6 +65,7 @@ def _settings(args):
 
 def run(args) -> int:
     from ..io.pixelmap import write_pixel_map
+    from ..io.whole_files import check_output_file, save_figure_whole
     from ..pixels import measure_pixel_map
 
     settings = _settings(args)
@@ -79,19 +80,19 @@ def run(args) -> int:
             raise FileExistsError(f"'{path}' exists; pass --overwrite to replace it")
         if path is not None and path.resolve() in {r.resolve() for r in raws}:
             raise CommandError(f"output '{path}' would overwrite an input file")
+    check_output_file(out, flag="-o/--output", overwrite=args.overwrite)
+    if figure is not None:
+        check_output_file(figure, flag="--figure" if args.figure else "the figure (MAP with .png; --figure PNG "
+                          "or --no-figure)", overwrite=args.overwrite)
     pixel_map = measure_pixel_map(raws, settings, progress=not args.no_progress)
     write_pixel_map(out, pixel_map, overwrite=args.overwrite)
     from ..io.pixelmap import read_pixel_map
 
     pixel_map = read_pixel_map(out)  # what was written, with its path
     if figure is not None:
-        import matplotlib.pyplot as plt
-
         from ..pixelmap_figures import plot_pixel_map_overview
 
-        fig = plot_pixel_map_overview(pixel_map)
-        fig.savefig(figure, dpi=110)
-        plt.close(fig)
+        save_figure_whole(plot_pixel_map_overview(pixel_map), figure, dpi=110)
     if args.json:
         print(json.dumps({"path": str(out), "fingerprint": pixel_map.fingerprint, "figure": str(figure or ""),
                           **pixel_map.summary()}, indent=2, default=float))

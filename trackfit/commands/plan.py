@@ -114,6 +114,7 @@ def _observation(args):
 
 
 def run(args) -> int:
+    from ..io.whole_files import check_output_file, make_output_folder
     from ..planner import plan_observation
 
     observation = _observation(args)
@@ -122,6 +123,10 @@ def run(args) -> int:
             raise FileNotFoundError(f"response file '{path}' does not exist")
     if args.name and len(args.name) != len(args.responses):
         raise CommandError(f"--name given {len(args.name)} times for {len(args.responses)} response files")
+    if args.json:
+        check_output_file(args.json, flag="--json", overwrite=True)
+    if args.figures:
+        make_output_folder(args.figures, flag="--figures")
     try:
         plan = plan_observation(args.responses, observation, names=args.name or None)
     except ValueError as err:

@@ -80,6 +80,7 @@ def run(args) -> int:
 def _run(args) -> int:
     from ..analysis import Calibration, measure_polarization
     from ..io.table import read_table
+    from ..io.whole_files import write_text_whole
 
     for path in [*args.table, *(args.background_table or [])]:
         if not Path(path).exists():
@@ -88,6 +89,7 @@ def _run(args) -> int:
         raise CommandError(f"--background-scale must be >= 0 (got {args.background_scale:g})")
     if args.modulation_factor is not None and not 0 < args.modulation_factor <= 1:
         raise CommandError(f"--modulation-factor must be in (0, 1] (got {args.modulation_factor:g})")
+    _check_outputs(args)
     calibration = Calibration.load(args.calibration) if args.calibration else None
     if args.modulation_factor is None and getattr(calibration, "modulation_factor", None) is None:
         where = (f"the calibration file '{args.calibration}' has no modulation-factor curve" if calibration
@@ -129,13 +131,12 @@ def _run(args) -> int:
         from .. import __version__
 
         result["trackfit_version"] = __version__
-        Path(args.json).write_text(json.dumps(result, indent=2, default=float) + "\n")
+        write_text_whole(args.json, json.dumps(result, indent=2, default=float) + "\n")
         print(f"wrote {args.json}")
     if args.figures:
         from ..analysis import figures
 
         out = Path(args.figures)
-        out.mkdir(parents=True, exist_ok=True)
         stem = Path(args.table[0]).stem + (f"_and_{len(args.table) - 1}_more" if several else "")
         if measurement.modulation is not None:
             figures.save_figure(figures.plot_modulation_curve(measurement.modulation),
@@ -143,6 +144,16 @@ def _run(args) -> int:
         figures.save_figure(figures.plot_stokes_plane(measurement.stokes), out / f"{stem}_stokes_plane.png")
         print(f"wrote figures to {out}/")
     return 0
+
+
+def _check_outputs(args) -> None:
+    """Outputs that cannot be written are reported before any table is read."""
+    from ..io.whole_files import check_output_file, make_output_folder
+
+    if args.json:
+        check_output_file(args.json, flag="--json", overwrite=True)
+    if args.figures:
+        make_output_folder(args.figures, flag="--figures")
 
 
 def _identity(path, table_identity) -> dict:

@@ -102,12 +102,14 @@ def _jobs(args):
     if args.output is not None:
         if len(raws) != 1:
             raise CommandError(f"-o/--output takes one RAW file (got {len(raws)}); use --out-dir for several")
-        outs = [Path(args.output)]
+        from ..io.whole_files import check_output_file
+
+        outs = [check_output_file(args.output, flag="-o/--output", overwrite=True)]
     else:
+        from ..io.whole_files import make_output_folder
         from ..recon.pipeline import output_name
 
-        out_dir = Path(args.out_dir)
-        out_dir.mkdir(parents=True, exist_ok=True)
+        out_dir = make_output_folder(args.out_dir, flag="--out-dir")
         outs = [output_name(raw, out_dir) for raw in raws]
         seen = {}
         for raw, out in zip(raws, outs, strict=True):

@@ -111,11 +111,12 @@ def _selection(args):
 
 
 def run_command(args) -> int:
+    from ..io.whole_files import check_output_file, make_output_folder
     from ..recon import ReconConfig
 
-    output = Path(args.output)
-    if output.exists() and not args.overwrite:
-        raise FileExistsError(f"'{output}' exists; pass --overwrite to replace it")
+    output = check_output_file(args.output, flag="-o/--output", overwrite=args.overwrite)
+    if args.keep_runs:
+        make_output_folder(args.keep_runs, flag="--keep-runs")
     if args.workers is not None and args.workers < 1:
         raise CommandError(f"--workers must be >= 1 (got {args.workers})")
     design, default_name = _design(args)

@@ -44,6 +44,10 @@ def run(args) -> int:
 
     if args.event < 0:
         raise CommandError(f"--event must be >= 0 (got {args.event})")
+    from ..io.whole_files import check_output_file, save_figure_whole
+
+    if args.output is not None:
+        check_output_file(args.output, flag="-o/--output", overwrite=True)
     from ..recon import ReconConfig
     from ..recon.clusters import event_as_reconstructed
 
@@ -87,6 +91,7 @@ def run(args) -> int:
     output = args.output
     if output is None and not interactive:
         output = f"{Path(args.file).stem}_event{event.index}.png"
+        check_output_file(output, flag="the default figure name (give -o PNG for another)", overwrite=True)
     if output is not None:
         matplotlib.use("agg")
     import matplotlib.pyplot as plt
@@ -95,8 +100,7 @@ def run(args) -> int:
     if output is None:
         plt.show()
     else:
-        ax.figure.savefig(output, dpi=150)
-        plt.close(ax.figure)
+        save_figure_whole(ax.figure, output, dpi=150)
         print(f"wrote {output}")
     return 0
 

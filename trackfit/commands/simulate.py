@@ -69,8 +69,9 @@ def _main(args: argparse.Namespace) -> int:
                                            polarization_angle_deg=args.polarization_angle_deg)
     from pathlib import Path
 
-    if Path(args.output).exists() and not args.overwrite:
-        raise CommandError(f"'{args.output}' exists; pass --overwrite to replace it")
+    from ..io.whole_files import check_output_file
+
+    check_output_file(args.output, flag="-o/--output", overwrite=args.overwrite)  # before the simulation runs
     from tqdm import tqdm
 
     design = args.preset if args.preset else Path(args.config).name
