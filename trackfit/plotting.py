@@ -13,13 +13,86 @@ import numpy as np
 from .events import Event
 from .io.energy_label import format_energy
 
-__all__ = ["draw_event", "draw_event_gallery"]
+__all__ = ["draw_event", "draw_event_gallery", "region_to_draw", "RegionTooLargeError", "DEFAULT_MAX_PIXELS",
+           "DEFAULT_MARGIN_PIXELS"]
 
 #: colours of the overlay, chosen to read on the perceptually uniform ``cividis`` map
 _OVERLAY = {"centroid": "#d62728", "conversion": "#ff7f0e", "axis": "black", "emission": "#e377c2",
             "outside": "#d62728"}
 #: legend label of the pixels above threshold that are not in the main cluster
 OUTSIDE_LABEL = "above threshold, outside the main cluster"
+#: most pixels one display draws: matplotlib takes about a millisecond per hexagon to render, so the whole chip
+#: (about 10^5 pixels) takes minutes; an event of a larger ROI is drawn around its hit pixels only
+DEFAULT_MAX_PIXELS = 20_000
+#: pixels drawn beyond the hit pixels on each side when only the region around them is drawn
+DEFAULT_MARGIN_PIXELS = 3
+#: pixels above the ROI's median by more than this many noise rms (half the 15.9 %-84.1 % quantile range) count as
+#: hits when no threshold is given (common practice: 5 sigma)
+_HIT_NOISE_RMS = 5.0
+
+
+class RegionTooLargeError(ValueError):
+    """Even the region around an event's hit pixels holds more pixels than a display draws."""
+
+
+def region_to_draw(event: Event, *, threshold_adc: float | None = None, outside_main=None,
+                   max_pixels: int = DEFAULT_MAX_PIXELS, margin_pixels: int = DEFAULT_MARGIN_PIXELS) -> np.ndarray:
+    """The ROI pixels a display draws: all of them when there are at most ``max_pixels``, else the rectangle of
+    columns and rows around the hit pixels, ``margin_pixels`` wider on each side.
+
+    Hit pixels are those above ``threshold_adc`` (and those of ``outside_main``); without a threshold, those above
+    the ROI's median by more than 5 noise rms, the rms taken as half the range between the 15.9 % and 84.1 %
+    quantiles of the ROI (robust to the few hit pixels; common practice).
+
+    Parameters
+    ----------
+    event : Event
+    threshold_adc : float, optional
+    outside_main : array of bool, optional
+        Per ROI pixel: pixels above threshold outside the main cluster (always inside the region).
+    max_pixels : int
+        Most pixels drawn (default :data:`DEFAULT_MAX_PIXELS`).
+    margin_pixels : int
+        Columns and rows drawn beyond the hit pixels on each side.
+
+    Returns
+    -------
+    ndarray of bool, one per ROI pixel
+
+    Raises
+    ------
+    RegionTooLargeError
+        The region around the hit pixels holds more than ``max_pixels`` pixels (the message gives both numbers).
+    """
+    if isinstance(max_pixels, bool) or int(max_pixels) != max_pixels or max_pixels < 1:
+        raise ValueError(f"'max_pixels' must be a positive integer (got {max_pixels!r})")
+    if isinstance(margin_pixels, bool) or int(margin_pixels) != margin_pixels or margin_pixels < 0:
+        raise ValueError(f"'margin_pixels' must be an integer >= 0 (got {margin_pixels!r})")
+    n = len(event.signal)
+    if n <= max_pixels:
+        return np.ones(n, bool)
+    values = event.signal.astype(np.float64)
+    if threshold_adc is None:
+        low, median, high = np.quantile(values, [0.158655, 0.5, 0.841345])
+        noise = 0.5 * float(high - low)  # the rms of Gaussian noise, robust to the few hit pixels
+        hits = values > median + _HIT_NOISE_RMS * max(noise, 1.0)
+    else:
+        hits = values > threshold_adc
+    if outside_main is not None:
+        hits |= np.asarray(outside_main, dtype=bool)
+    if not hits.any():
+        hits = values == values.max()  # nothing stands out: the region of the largest pixel
+    columns, rows = np.asarray(event.columns), np.asarray(event.rows)
+    c_lo, c_hi = columns[hits].min() - margin_pixels, columns[hits].max() + margin_pixels
+    r_lo, r_hi = rows[hits].min() - margin_pixels, rows[hits].max() + margin_pixels
+    region = (columns >= c_lo) & (columns <= c_hi) & (rows >= r_lo) & (rows <= r_hi)
+    n_region = int(region.sum())
+    if n_region > max_pixels:
+        raise RegionTooLargeError(
+            f"event {event.index}: the region around its {int(hits.sum())} hit pixels (columns "
+            f"{int(c_lo)}..{int(c_hi)}, rows {int(r_lo)}..{int(r_hi)}, {margin_pixels} pixels of margin) holds "
+            f"{n_region} of its {n} ROI pixels, more than the {int(max_pixels)} a display draws")
+    return region
 
 
 def _scalar(result, key, default=np.nan):
@@ -29,8 +102,12 @@ def _scalar(result, key, default=np.nan):
 
 def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | None = None, cmap: str = "cividis",
                colorbar: bool = True, title: bool = True, outside_main=None, provenance=None,
-               vmax: float | None = None, legend: bool = True):
+               vmax: float | None = None, legend: bool = True, max_pixels: int = DEFAULT_MAX_PIXELS,
+               margin_pixels: int = DEFAULT_MARGIN_PIXELS):
     """Draw one event as filled hexagonal pixels on chip coordinates (mm).
+
+    An event of more than ``max_pixels`` ROI pixels (a full-chip readout) is drawn around its hit pixels only
+    (:func:`region_to_draw`); the title says so.
 
     Parameters
     ----------
@@ -59,20 +136,36 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
         Top of the colour scale (default: the event's largest pixel value).
     legend : bool
         Draw the legend inside the axes (a gallery draws one for all panels instead).
+    max_pixels, margin_pixels : int
+        See :func:`region_to_draw`.
 
     Returns
     -------
     matplotlib Axes
+
+    Raises
+    ------
+    RegionTooLargeError
+        Even the region around the hit pixels holds more than ``max_pixels`` pixels.
     """
     import matplotlib.pyplot as plt
     from matplotlib.collections import PolyCollection
 
+    if outside_main is not None:
+        outside_main = np.asarray(outside_main, dtype=bool)
+        if outside_main.shape != event.signal.shape:
+            raise ValueError(f"'outside_main' must have one entry per ROI pixel ({event.signal.shape}), got "
+                             f"{outside_main.shape}")
+    region = region_to_draw(event, threshold_adc=threshold_adc, outside_main=outside_main, max_pixels=max_pixels,
+                            margin_pixels=margin_pixels)
+    partial = not region.all()
     if ax is None:
         _, ax = plt.subplots(figsize=(6.0, 5.0), layout="constrained")
     grid = event.grid
-    values = event.signal.astype(np.float64)
+    values = event.signal[region].astype(np.float64)
+    x_mm, y_mm = np.asarray(event.x_mm)[region], np.asarray(event.y_mm)[region]
     shown = np.ones(values.shape, bool) if threshold_adc is None else values > threshold_adc
-    vertices = grid.hexagon_vertices_mm(event.x_mm, event.y_mm)
+    vertices = grid.hexagon_vertices_mm(x_mm, y_mm)
     vmax = max(float(values.max(initial=0.0)), 1.0) if vmax is None else float(vmax)
     filled = PolyCollection(vertices[shown], array=np.clip(values[shown], 0, None), cmap=cmap,
                             edgecolors="face", linewidths=0.3)
@@ -81,23 +174,22 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     if (~shown).any():
         ax.add_collection(PolyCollection(vertices[~shown], facecolors="none", edgecolors="0.85", linewidths=0.3))
     if outside_main is not None:
-        outside = np.asarray(outside_main, dtype=bool)
-        if outside.shape != values.shape:
-            raise ValueError(f"'outside_main' must have one entry per ROI pixel ({values.shape}), got {outside.shape}")
+        outside = outside_main[region]
         if outside.any():
             ax.add_collection(PolyCollection(vertices[outside], facecolors="none", edgecolors=_OVERLAY["outside"],
                                              hatch="////", linewidths=0.6, label=OUTSIDE_LABEL))
     pad = grid.pitch_mm
     if len(values):
-        ax.set_xlim(event.x_mm.min() - pad, event.x_mm.max() + pad)
-        ax.set_ylim(event.y_mm.min() - pad, event.y_mm.max() + pad)
+        ax.set_xlim(x_mm.min() - pad, x_mm.max() + pad)
+        ax.set_ylim(y_mm.min() - pad, y_mm.max() + pad)
     ax.set_aspect("equal")
     ax.set_xlabel("x [mm]")
     ax.set_ylabel("y [mm]")
     if colorbar:
         ax.figure.colorbar(filled, ax=ax, label="pulse height [ADC counts]", shrink=0.85)
     if title:
-        ax.set_title(_title(event, result, provenance), fontsize="medium")
+        ax.set_title(_title(event, result, provenance, n_drawn=len(values) if partial else None),
+                     fontsize="medium")
     if result is not None:
         _draw_overlay(ax, result)
     if legend:
@@ -105,17 +197,17 @@ def draw_event(event: Event, ax=None, result=None, *, threshold_adc: float | Non
     return ax
 
 
-def _title(event, result, provenance) -> str:
+def _title(event, result, provenance, n_drawn=None) -> str:
     text = f"event {event.index} (trigger {event.trigger_id}): {len(event.signal)} ROI pixels"
-    if result is None:
-        return text
-    n_main = result.get("n_pixels") if isinstance(result, Mapping) else getattr(result, "n_pixels", None)
-    if n_main is not None:
-        text += f", {int(n_main)} in the main cluster"
-    energy = _scalar(result, "energy_kev")
-    if np.isfinite(energy):
-        text += f"\nmain cluster energy {format_energy(energy, provenance)}"
-    return text
+    second = [] if n_drawn is None else [f"{n_drawn} drawn, around the hits"]
+    if result is not None:
+        n_main = result.get("n_pixels") if isinstance(result, Mapping) else getattr(result, "n_pixels", None)
+        if n_main is not None:
+            text += f", {int(n_main)} in the main cluster"
+        energy = _scalar(result, "energy_kev")
+        if np.isfinite(energy):
+            second.append(f"main cluster energy {format_energy(energy, provenance)}")
+    return "\n".join([text, "; ".join(second)]) if second else text
 
 
 def _legend(ax):

@@ -6,6 +6,9 @@ from pathlib import Path
 
 from ..cli import CommandError
 
+#: trackfit.plotting.DEFAULT_MAX_PIXELS (checked by a test; kept here so that building the parser imports nothing)
+DEFAULT_MAX_PIXELS = 20_000
+
 
 def register(subparsers):
     parser = subparsers.add_parser(
@@ -31,6 +34,10 @@ def register(subparsers):
     parser.add_argument("--threshold-adc", type=float, default=None, metavar="ADC",
                         help="draw pixels at or below this value as outlines (default: the reconstruction "
                         "threshold when the overlay is drawn, else none)")
+    parser.add_argument("--max-pixels", type=int, default=None, metavar="N",
+                        help="most pixels drawn: an event of a larger ROI (a full-chip readout) is drawn around its "
+                        "pixels above the threshold only, and refused when even that region is larger (default "
+                        f"{DEFAULT_MAX_PIXELS}; matplotlib needs about a millisecond per pixel)")
     parser.set_defaults(func=run)
 
 
@@ -40,10 +47,13 @@ def run(args) -> int:
     import matplotlib
 
     from ..io.raw import open_raw
-    from ..plotting import draw_event
+    from ..plotting import RegionTooLargeError, draw_event, region_to_draw
 
     if args.event < 0:
         raise CommandError(f"--event must be >= 0 (got {args.event})")
+    max_pixels = DEFAULT_MAX_PIXELS if args.max_pixels is None else args.max_pixels
+    if max_pixels < 1:
+        raise CommandError(f"--max-pixels must be >= 1 (got {max_pixels})")
     from ..io.whole_files import check_output_file, save_figure_whole
 
     if args.output is not None:
@@ -87,6 +97,14 @@ def run(args) -> int:
               f"{clusters.n_clusters} cluster(s); main cluster {int(clusters.in_main.sum())} pixels "
               f"(n_pixels), {int(outside.sum())} pixels outside it (hatched)")
         print(_describe(result, provenance, config.emission_estimator))
+    try:  # refused before anything is drawn
+        region = region_to_draw(event, threshold_adc=threshold, outside_main=outside, max_pixels=max_pixels)
+    except RegionTooLargeError as err:
+        raise CommandError(f"{err}: draw a smaller part with --threshold-adc ADC above the noise, or allow more "
+                           f"with --max-pixels N (about a millisecond each)") from None
+    if not region.all():
+        print(f"drawn: {int(region.sum())} of the {len(region)} ROI pixels, the region around the pixels above "
+              f"the threshold (the ROI has more than --max-pixels {max_pixels})")
     interactive = matplotlib.get_backend().lower() not in ("agg", "pdf", "svg", "ps", "cairo", "template")
     output = args.output
     if output is None and not interactive:
@@ -96,7 +114,8 @@ def run(args) -> int:
         matplotlib.use("agg")
     import matplotlib.pyplot as plt
 
-    ax = draw_event(event, result=result, threshold_adc=threshold, outside_main=outside, provenance=provenance)
+    ax = draw_event(event, result=result, threshold_adc=threshold, outside_main=outside, provenance=provenance,
+                    max_pixels=max_pixels)
     if output is None:
         plt.show()
     else:
