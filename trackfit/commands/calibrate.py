@@ -15,6 +15,7 @@ from pathlib import Path
 from ..analysis.selection import NoEventsLeftError
 from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, parse_run_spec, print_warnings, selection_from_args
+from ._tables import missing_column_error, no_events_error
 
 #: library parameters of build_calibration quoted in its errors ('min_counts') -> the flags that set them
 PARAMETER_FLAGS = {"min_counts": "--gain-min-counts", "energy_edges_kev": "--spurious-energy-edges",
@@ -121,18 +122,35 @@ def _check_flags(args) -> None:
 class _Tables:
     """Event tables read once per path (lines of one table share it, so they are found together)."""
 
-    def __init__(self):
-        self.tables = {}
+    def __init__(self, estimator=None):
+        self.tables, self.paths, self.estimator = {}, {}, estimator
 
-    def __call__(self, path):
+    def __call__(self, path, *, angles: bool = False):
+        """The table of ``path``, its values checked (``angles``: with the estimate the angle analysis uses)."""
+        from ..analysis.estimates import estimator_of, with_estimate
+        from ..analysis.table_checks import TableValueError, check_analysis_values
         from ..io.table import read_table
+        from ..recon.estimators import ESTIMATE_COLUMNS
 
         key = str(Path(path).resolve())
         if key not in self.tables:
             if not Path(path).exists():
                 raise FileNotFoundError(f"event table '{path}' does not exist")
             self.tables[key] = read_table(path)
-        return self.tables[key]
+            self.paths[Path(path).name] = path
+        table = self.tables[key]
+        estimator = (self.estimator or estimator_of(table)) if angles else "two-stage"
+        try:
+            check_analysis_values(with_estimate(table, estimator, name=f"event table '{path}'"),
+                                  name=f"event table '{path}'", columns=ESTIMATE_COLUMNS[estimator])
+        except TableValueError:
+            raise
+        except (KeyError, ValueError) as err:
+            explained = missing_column_error(err, [path])
+            if explained is None:
+                raise
+            raise explained from None
+        return table
 
 
 def run(args) -> int:
@@ -158,7 +176,7 @@ def _run(args) -> int:
     output = check_output_file(args.output, flag="-o/--output", overwrite=args.overwrite)
     if args.figures:  # checked before the fits, which take a while
         make_output_folder(args.figures, flag="--figures")
-    read = _Tables()
+    read = _Tables(args.estimator)
     flat = []
     for spec in args.flat_field:
         path, opts = parse_run_spec(spec, ("energy_kev",))
@@ -173,12 +191,12 @@ def _run(args) -> int:
         if not opts["energy_kev"] > 0:
             raise CommandError(f"--line '{spec}': energy_kev must be > 0 keV (got {opts['energy_kev']:g})")
         lines.append(CalibrationRun(table=read(path), label=Path(path).name, energy_kev=opts["energy_kev"]))
-    unpolarized = [CalibrationRun(table=read(p), label=Path(p).name) for p in args.unpolarized]
+    unpolarized = [CalibrationRun(table=read(p, angles=True), label=Path(p).name) for p in args.unpolarized]
     polarized = []
     for spec in args.polarized:
         path, opts = parse_run_spec(spec, ("degree", "angle_deg"))
         angle = opts.get("angle_deg")
-        polarized.append(CalibrationRun(table=read(path), label=Path(path).name,
+        polarized.append(CalibrationRun(table=read(path, angles=True), label=Path(path).name,
                                         polarization_degree=opts.get("degree", 1.0),
                                         polarization_angle_rad=None if angle is None else math.radians(angle)))
     base = Calibration.load(args.update) if args.update else None
@@ -192,11 +210,14 @@ def _run(args) -> int:
                 quadratic=args.quadratic, spurious_cell_mm=args.spurious_cell_mm,
                 spurious_min_counts=args.spurious_min_counts, spurious_energy_edges_kev=args.spurious_energy_edges,
                 extent_mm=args.extent_mm, base=base, estimator=args.estimator)
-        except NoEventsLeftError:
-            raise
-        except ValueError as err:  # messages naming build_calibration's parameters (gain_cell_mm=...) name flags
-            text = _with_flags(str(err))
+        except NoEventsLeftError as err:
+            raise _no_events(err, read) from None
+        except (KeyError, ValueError) as err:  # build_calibration's parameters (gain_cell_mm=...) become flags
+            text = _with_flags(str(err)) if isinstance(err, ValueError) else str(err)
             if text == str(err):
+                explained = missing_column_error(err, list(read.paths.values()))
+                if explained is not None:
+                    raise explained from None
                 raise
             raise CommandError(text) from None
     calibration.save(output, overwrite=args.overwrite)
@@ -205,6 +226,17 @@ def _run(args) -> int:
     if args.figures:
         _figures(calibration, report, Path(args.figures), polarized)
     return 0
+
+
+def _no_events(err, read) -> CommandError:
+    """One line naming the run's table, the cut flow and why the default selection removed its events."""
+    import re
+
+    found = re.search(r"in (.+?) run '([^']+)'", str(err))
+    if not found or found.group(2) not in read.paths:
+        return CommandError(" ".join(str(err).split()))
+    role, path = found.group(1), read.paths[found.group(2)]
+    return no_events_error(err, f"{role} run '{path}'", [path], read.estimator, [path])
 
 
 def _print_report(calibration, report):

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, has_cut_options, print_warnings, selection_from_args
+from ._tables import missing_column_error, no_events_error, table_columns
 
 #: library parameters of measure_polarization -> the flags that set them (errors name the flag)
 PARAMETER_FLAGS = {"n_bins": "--bins", "confidence_level": "--confidence", "energy_bands_kev": "--bands",
@@ -78,7 +79,8 @@ def run(args) -> int:
 
 
 def _run(args) -> int:
-    from ..analysis import Calibration, measure_polarization
+    from ..analysis import Calibration, NoEventsLeftError, measure_polarization
+    from ..analysis.estimates import EstimateMismatchError, estimator_of
     from ..io.table import read_table
     from ..io.whole_files import write_text_whole
 
@@ -107,12 +109,30 @@ def _run(args) -> int:
     if args.background_table:
         background_table = ([Path(p) for p in args.background_table] if len(args.background_table) > 1
                             else read_table(args.background_table[0]))
-    with flags_for_parameters(PARAMETER_FLAGS):
-        measurement = measure_polarization(
-            table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
-            weighting=args.weights, background_selection=background_selection, background_table=background_table,
-            background_scale=args.background_scale, energy_bands_kev=args.bands, n_bins=args.bins,
-            use_gain_drift=args.use_gain_drift, confidence_level=args.confidence, estimator=args.estimator)
+    estimator = args.estimator or estimator_of(table if not several else read_table(args.table[0], columns=[]))
+    _check_values(args.table, table, estimator)
+    if background_table is not None:
+        _check_values(args.background_table, background_table, estimator)
+    inputs = [*args.table, *(args.background_table or [])]
+    try:
+        with flags_for_parameters(PARAMETER_FLAGS):
+            measurement = measure_polarization(
+                table, selection=selection, calibration=calibration, modulation_factor=args.modulation_factor,
+                weighting=args.weights, background_selection=background_selection,
+                background_table=background_table, background_scale=args.background_scale,
+                energy_bands_kev=args.bands, n_bins=args.bins, use_gain_drift=args.use_gain_drift,
+                confidence_level=args.confidence, estimator=args.estimator)
+    except NoEventsLeftError as err:
+        what = f"the {len(args.table)} tables" if several else f"event table '{args.table[0]}'"
+        raise no_events_error(err, what, args.table if several else [table], estimator, args.table) from None
+    except EstimateMismatchError as err:
+        raise CommandError(f"calibration '{args.calibration}' and event table(s) {', '.join(args.table)}: "
+                           f"{err}") from None
+    except (KeyError, ValueError) as err:
+        explained = missing_column_error(err, inputs)
+        if explained is None:
+            raise
+        raise explained from None
     runs = ", ".join(args.table) if len(args.table) <= 3 else f"{len(args.table)} tables ({args.table[0]}, ...)"
     print(f"run{'s' if several else ''}: {runs}" + (f"   calibration: {args.calibration}" if args.calibration
                                                       else ""))
@@ -160,4 +180,29 @@ def _identity(path, table_identity) -> dict:
     """What the JSON records of an input table (its provenance and row count; one column is read)."""
     from ..io.table import read_table
 
-    return table_identity(read_table(path, columns=["emission_rad"]), str(path))
+    return table_identity(read_table(path, columns=["status"]), str(path))
+
+
+def _check_values(paths, table, estimator) -> None:
+    """Refuse tables whose usable events hold values the reconstruction never writes (one table at a time)."""
+    from ..analysis.estimates import with_estimate
+    from ..analysis.table_checks import TableValueError, check_analysis_values
+    from ..io.table import read_table
+    from ..recon.estimators import ESTIMATE_COLUMNS
+
+    names = ESTIMATE_COLUMNS[estimator]
+    needed = ["event_index", "status", "energy_kev", "pulse_height", *names.values()]
+    for path in paths:
+        one = table if len(paths) == 1 else None
+        try:
+            if one is None:
+                one = read_table(path, columns=[c for c in needed if c in table_columns(path)])
+            one = with_estimate(one, estimator, name=f"event table '{path}'")
+            check_analysis_values(one, name=f"event table '{path}'", columns=names)
+        except TableValueError:
+            raise
+        except (KeyError, ValueError) as err:
+            explained = missing_column_error(err, [path])
+            if explained is None:
+                raise
+            raise explained from None
