@@ -222,6 +222,7 @@ def test_out_dir_is_created_and_a_folder_is_no_output_file(small_raw_file, tmp_p
 def test_a_failed_figure_leaves_nothing_and_keeps_the_old_file(tmp_path, monkeypatch):
     import matplotlib.pyplot as plt
 
+    from trackfit.io.errors import FileWriteError
     from trackfit.io.whole_files import save_figure_whole, write_text_whole
 
     target = tmp_path / "figure.png"
@@ -232,9 +233,9 @@ def test_a_failed_figure_leaves_nothing_and_keeps_the_old_file(tmp_path, monkeyp
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(fig, "savefig", full_disk)
-    with pytest.raises(OSError) as caught:
+    with pytest.raises(FileWriteError) as caught:
         save_figure_whole(fig, target)
-    assert caught.value.filename == str(target) and "No space left" in str(caught.value)
+    assert str(caught.value) == f"cannot write file '{target}': no space left on device"
     assert target.read_bytes() == b"the figure of yesterday" and sorted(tmp_path.iterdir()) == [target]
     assert not plt.fignum_exists(fig.number)
     write_text_whole(target.with_suffix(".json"), "{}\n")

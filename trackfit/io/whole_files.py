@@ -38,9 +38,9 @@ def replaced_when_complete(path, *, overwrite: bool = True) -> Iterator[Path]:
     ------
     FileExistsError
         ``path`` exists and ``overwrite`` is False.
-    OSError
-        The folder cannot be written (permission denied, read-only, no space left, ...); the message names
-        ``path``.
+    trackfit.io.errors.FileWriteError
+        The folder cannot be written (permission denied, read-only, no space left, ...); an ``OSError`` naming
+        ``path`` and the cause.
     """
     path = Path(path)
     if not overwrite and path.exists():
@@ -67,11 +67,15 @@ def replaced_when_complete(path, *, overwrite: bool = True) -> Iterator[Path]:
 
 
 def _naming(err: OSError, path: Path) -> OSError:
-    """``err`` with ``path`` as its file name (what a user asked for, not our temporary name)."""
+    """The error to raise for ``err``, naming ``path`` (what a user asked for, not our temporary name)."""
+    from .errors import FileWriteError, describe_os_error
+
     if isinstance(err, FileExistsError):
-        return FileExistsError(err.errno, f"{err.strerror or err} (it appeared while it was being written)",
-                               str(path))
-    return type(err)(err.errno, err.strerror or str(err), str(path)) if err.errno else err
+        return FileExistsError(err.errno, f"'{path}' appeared while it was being written; pass --overwrite to "
+                               "replace it", str(path))
+    if isinstance(err, FileWriteError):
+        return err
+    return FileWriteError(path, describe_os_error(err, path), errno=err.errno)
 
 
 def write_text_whole(path, text: str, *, overwrite: bool = True) -> Path:
@@ -168,6 +172,7 @@ def _check_writable(folder: Path, path: Path, flag: str) -> None:
 
 
 def _reason(err: OSError) -> str:
-    """The operating system's reason in lower case (``read-only file system``, ``permission denied``)."""
-    text = err.strerror or str(err)
-    return text[:1].lower() + text[1:]
+    """The operating system's reason in words (``read-only file system``, ``permission denied``)."""
+    from .errors import describe_os_error
+
+    return describe_os_error(err)
