@@ -140,8 +140,8 @@ def no_events_error(err, what: str, tables, estimator: str | None, paths=()) -> 
     flow = err.flow
     if flow.n_input == 0:
         origins = "; ".join(table_origin(p) for p in paths) or what
-        return CommandError(f"no events in {what}: {origins} hold(s) no rows; a table of 0 rows comes from a raw file "
-                            "of 0 events (see trackfit info on the raw file)")
+        return CommandError(f"no events left in {what}: the input holds no rows ({origins}); a table of 0 rows "
+                            "comes from a raw file of 0 events (see trackfit info on the raw file)")
     text = f"no events left in {what} after the selection: {one_line_cut_flow(flow)}"
     removed_by_default = flow.rows[0][2] if flow.rows else 0
     if removed_by_default:

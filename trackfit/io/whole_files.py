@@ -161,12 +161,18 @@ def make_output_folder(path, *, flag: str) -> Path:
 
 def _check_writable(folder: Path, path: Path, flag: str) -> None:
     """Create and remove a temporary file in ``folder``: the one check that also holds for read-only file systems,
-    access control lists and the superuser."""
+    access control lists and the superuser. ``path`` is the output file, or ``folder`` itself for an output
+    folder."""
+    from .errors import FileWriteError
+
     try:
         handle, name = tempfile.mkstemp(prefix=".trackfit-write-check.", dir=folder)
     except OSError as err:
-        raise type(err)(err.errno, f"{flag} '{path}': cannot write into the folder '{folder}' ({_reason(err)})",
-                        str(path)) from None
+        if path == folder:
+            raise type(err)(err.errno, f"{flag} '{folder}': cannot write into the folder ({_reason(err)})",
+                            str(folder)) from None
+        raise FileWriteError(path, f"{_reason(err)} (checked before any work; the folder '{folder}', given with "
+                             f"{flag})", errno=err.errno) from None
     os.close(handle)
     os.unlink(name)
 
