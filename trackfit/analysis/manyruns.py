@@ -177,7 +177,7 @@ def table_sums(table, spec: MeasurementSpec, *, source: bool = True, background:
         from ..io.table import read_table
 
         path = Path(table)
-        n_rows = len(read_table(path, ["emission_rad"]))  # one column: the row count
+        n_rows = len(read_table(path, ["status"]))  # one column every table has: the row count
         total = RunSums(n_tables=1)
         for a in range(0, max(n_rows, 1), BLOCK_ROWS):
             block = read_table(path, start=a, stop=a + BLOCK_ROWS)

@@ -17,7 +17,6 @@ import json
 from dataclasses import dataclass
 from pathlib import Path
 
-import h5py
 import numpy as np
 
 from ..io._partial import now_utc, partial_files, write_text_file
@@ -99,10 +98,10 @@ def resume_decision(raw_path, out_path, *, settings: str, n_events: int) -> Resu
 
 def table_status_counts(path) -> dict:
     """Status counts of a table: rows, fully reconstructed, usable with warnings only, failed, malformed input."""
+    from ..io.table import read_table
     from .status import FAILURE_BITS, Status
 
-    with h5py.File(path, "r") as f:
-        status = f["events/status"][:].astype(np.int64)
+    status = np.asarray(read_table(path, ["status"])["status"], dtype=np.int64)
     failed = (status & int(FAILURE_BITS)) != 0
     return {"rows": int(status.size), "fully_reconstructed": int(np.count_nonzero(status == 0)),
             "warnings_only": int(np.count_nonzero((status != 0) & ~failed)), "failed": int(np.count_nonzero(failed)),

@@ -221,7 +221,7 @@ def _attrs(path: Path) -> dict | None:
             out = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in f["provenance"].attrs.items()}
             out["_n_rows"] = int(f["events"].attrs["n_rows"])
             return out
-    except (OSError, KeyError):
+    except Exception:  # noqa: BLE001 - a part that cannot be read for any reason is made again
         return None
 
 
