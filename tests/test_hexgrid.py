@@ -153,9 +153,18 @@ def test_contains():
 @pytest.mark.parametrize(
     "kwargs, message",
     [
-        (dict(pitch_mm=-0.05), "'pitch_mm' must be a finite number > 0 (got -0.05)"),
-        (dict(n_columns=0), "'n_columns' must be an integer >= 1 (got 0)"),
-        (dict(n_rows=2.5), "'n_rows' must be an integer >= 1 (got 2.5)"),
+        (dict(pitch_mm=-0.05), "'pitch_mm' must be a finite number of mm between 0.0001 and 10 (got -0.05)"),
+        (dict(pitch_mm=1e300), "'pitch_mm' must be a finite number of mm between 0.0001 and 10 (got 1e+300)"),
+        (dict(pitch_mm=float("nan")), "'pitch_mm' must be a finite number of mm between 0.0001 and 10 (got nan)"),
+        (dict(pitch_mm="0.05"), "'pitch_mm' must be a number of mm (got '0.05')"),
+        (dict(n_columns=0), "'n_columns' must be an integer between 1 and 32768 (got 0)"),
+        (dict(n_columns=1e300), "'n_columns' must be an integer between 1 and 32768 (got 1e+300)"),
+        (dict(n_columns=2**64), f"'n_columns' must be an integer between 1 and 32768 (got {2**64})"),
+        (dict(n_columns=float("inf")), "'n_columns' must be an integer (got inf)"),
+        (dict(n_columns="300"), "'n_columns' must be an integer (got '300')"),
+        (dict(n_columns=True), "'n_columns' must be an integer (got True)"),
+        (dict(n_rows=2.5), "'n_rows' must be an integer (got 2.5)"),
+        (dict(shifted_rows=["odd"]), "'shifted_rows' must be 'odd' or 'even' (got ['odd'])"),
         (dict(shifted_rows="left"), "'shifted_rows' must be 'odd' or 'even' (got 'left')"),
     ],
 )

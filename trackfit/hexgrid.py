@@ -21,9 +21,19 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["HexGrid", "AXIAL_DIRECTIONS"]
+__all__ = ["HexGrid", "AXIAL_DIRECTIONS", "PITCH_RANGE_MM", "MAX_CHIP_SIDE"]
 
 SQRT3 = float(np.sqrt(3.0))
+
+#: Accepted range of ``pitch_mm``: 0.1 micrometre to 10 mm. Pixel chips of these detectors have pitches of tens of
+#: micrometres; outside this range a value is a mistake (a unit slip, a damaged file), and far outside it positions
+#: and moments leave the float range.
+PITCH_RANGE_MM = (1e-4, 10.0)
+#: Largest ``n_columns`` and ``n_rows``: 32768 = 2**15, so that a chip has at most 2**30 pixels and every pixel
+#: index, ROI area and count of pixels or clusters fits a signed 32-bit integer (the index type of the kernels and
+#: of the ``n_pixels``, ``n_clusters`` and ``n_conv_pixels`` table columns). A chip-sized map of that size takes
+#: 1 GiB per byte of pixel data.
+MAX_CHIP_SIDE = 1 << 15
 
 #: The six neighbour steps in axial coordinates (dq, dr), counter-clockwise from +x.
 AXIAL_DIRECTIONS = np.array([(1, 0), (0, 1), (-1, 1), (-1, 0), (0, -1), (1, -1)], dtype=np.int64)
@@ -36,11 +46,18 @@ class HexGrid:
     Parameters
     ----------
     pitch_mm : float
-        Centre-to-centre distance of neighbouring pixels, mm (default 0.050).
+        Centre-to-centre distance of neighbouring pixels, mm (default 0.050), finite and within
+        :data:`PITCH_RANGE_MM` (1e-4 to 10 mm).
     n_columns, n_rows : int
-        Chip size in pixels (default 300 x 352).
+        Chip size in pixels (default 300 x 352): integers from 1 to :data:`MAX_CHIP_SIDE` (32768), so that pixel
+        indices fit 32-bit integers. Integral floats (300.0) are accepted.
     shifted_rows : {"odd", "even"}
         Which rows are offset by ``+pitch_mm / 2`` in x.
+
+    Raises
+    ------
+    ValueError
+        A parameter of the wrong type or outside its range; the message names it and the value given.
 
     Examples
     --------
@@ -61,14 +78,22 @@ class HexGrid:
     _y0_mm: float = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
-        if not np.isfinite(self.pitch_mm) or self.pitch_mm <= 0:
-            raise ValueError(f"'pitch_mm' must be a finite number > 0 (got {self.pitch_mm!r})")
+        pitch = self.pitch_mm
+        if isinstance(pitch, bool | np.bool_) or not isinstance(pitch, int | float | np.integer | np.floating):
+            raise ValueError(f"'pitch_mm' must be a number of mm (got {pitch!r})")
+        if not (np.isfinite(pitch) and PITCH_RANGE_MM[0] <= pitch <= PITCH_RANGE_MM[1]):
+            raise ValueError(f"'pitch_mm' must be a finite number of mm between {PITCH_RANGE_MM[0]:g} and "
+                             f"{PITCH_RANGE_MM[1]:g} (got {pitch!r})")
         for name in ("n_columns", "n_rows"):
             value = getattr(self, name)
-            if isinstance(value, bool) or int(value) != value or value < 1:
-                raise ValueError(f"'{name}' must be an integer >= 1 (got {value!r})")
+            if isinstance(value, bool | np.bool_) or not isinstance(value, int | float | np.integer | np.floating):
+                raise ValueError(f"'{name}' must be an integer (got {value!r})")
+            if isinstance(value, float | np.floating) and not (np.isfinite(value) and float(value).is_integer()):
+                raise ValueError(f"'{name}' must be an integer (got {value!r})")
+            if not 1 <= int(value) <= MAX_CHIP_SIDE:
+                raise ValueError(f"'{name}' must be an integer between 1 and {MAX_CHIP_SIDE} (got {value!r})")
             object.__setattr__(self, name, int(value))
-        if self.shifted_rows not in ("odd", "even"):
+        if not isinstance(self.shifted_rows, str) or self.shifted_rows not in ("odd", "even"):
             raise ValueError(f"'shifted_rows' must be 'odd' or 'even' (got {self.shifted_rows!r})")
         object.__setattr__(self, "pitch_mm", float(self.pitch_mm))
         # The origin is the centre of the bounding box of all pixel centres (both parities present).
@@ -252,13 +277,18 @@ class HexGrid:
 
     @classmethod
     def from_dict(cls, values) -> HexGrid:
-        """Inverse of :meth:`to_dict`; accepts numpy scalars and bytes (HDF5 attributes)."""
-        shifted = values["shifted_rows"]
-        if isinstance(shifted, bytes):
-            shifted = shifted.decode()
-        return cls(
-            pitch_mm=float(values["pitch_mm"]),
-            n_columns=int(values["n_columns"]),
-            n_rows=int(values["n_rows"]),
-            shifted_rows=str(shifted),
-        )
+        """Inverse of :meth:`to_dict`; accepts numpy scalars and bytes (HDF5 attributes).
+
+        The values are checked by the constructor as given: numbers stored as text, arrays and out-of-range values
+        are refused with a ValueError naming the parameter (never converted first).
+        """
+        def plain(value):
+            if isinstance(value, bytes):
+                try:
+                    return value.decode()
+                except UnicodeDecodeError:
+                    return value
+            return value.item() if isinstance(value, np.generic) else value
+
+        return cls(pitch_mm=plain(values["pitch_mm"]), n_columns=plain(values["n_columns"]),
+                   n_rows=plain(values["n_rows"]), shifted_rows=plain(values["shifted_rows"]))

@@ -63,8 +63,21 @@ def test_old_setting_names_are_refused_with_the_new_name(tmp_path, text, new):
 
 
 @pytest.mark.parametrize("kwargs, text", [
-    ({"threshold_adc": -1}, "'threshold_adc' must be >= 0 (got -1.0)"),
-    ({"min_pixels": 0}, "'min_pixels' must be >= 1"),
+    ({"threshold_adc": -1}, "'threshold_adc' must be a number between 0 and 32767 ADC counts (got -1)"),
+    ({"threshold_adc": 1e20}, "'threshold_adc' must be a number between 0 and 32767 ADC counts (got 1e+20)"),
+    ({"threshold_adc": 10**400}, "'threshold_adc' must be a number between 0 and 32767 ADC counts (got 1000"),
+    ({"threshold_adc": True}, "'threshold_adc' must be a number between 0 and 32767 ADC counts (got True)"),
+    ({"min_pixels": 0}, "'min_pixels' must be an integer between 1 and 1073741824 pixels (got 0)"),
+    ({"min_pixels": float("inf")}, "'min_pixels' must be finite (got inf)"),
+    ({"min_pixels": np.float64("nan")}, "'min_pixels' must be finite (got"),
+    ({"min_pixels": 2**63}, "'min_pixels' must be an integer between 1 and 1073741824 pixels"),
+    ({"saturation_adc": 2**64}, "'saturation_adc' must be an integer between 1 and 32768 ADC counts"),
+    ({"saturation_adc": np.uint64(2**64 - 1)}, "'saturation_adc' must be an integer between 1 and 32768 ADC"),
+    ({"counts_per_kev": 1e-300}, "'counts_per_kev' must be a number between 1e-06 and 1e+09 ADC counts per keV"),
+    ({"start_search_outer_rms": 1e300}, "'start_search_outer_rms' must be a number between 0 and 100"),
+    ({"second_pass_length_mm": 1e300}, "'second_pass_length_mm' must be a number between 0 and 1000 mm"),
+    ({"threshold_noise_rms": 1e9, "pixel_map": "map.h5"}, "'threshold_noise_rms' must be a number between 0 and"),
+    ({"emission_estimator": ["adaptive"]}, "'emission_estimator' must be one of"),
     ({"min_pixels": 2.5}, "'min_pixels' must be an integer"),
     ({"start_search_inner_rms": 2.0, "start_search_outer_rms": 1.0},
      "'start_search_outer_rms' must be > start_search_inner_rms"),
@@ -74,6 +87,7 @@ def test_old_setting_names_are_refused_with_the_new_name(tmp_path, text, new):
     ({"start_search_inner_rms": "1"}, "'start_search_inner_rms' must be a number"),
     ({"bad_pixels": [(1, 2, 3)]}, "'bad_pixels' must be a list of (column, row)"),
     ({"bad_pixels": [(-1, 2)]}, "non-negative"),
+    ({"bad_pixels": np.array([[2**64 - 1, 2]], np.uint64)}, f"below 32768, the largest chip side (got [{2**64 - 1}, 2])"),
 ])
 def test_invalid_values_name_the_field(kwargs, text):
     with pytest.raises(ValueError) as err:

@@ -21,8 +21,9 @@ from pathlib import Path
 import numpy as np
 
 from .._toml import dumps, parse, read_file
+from ..hexgrid import MAX_CHIP_SIDE
 
-__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV",
+__all__ = ["ReconConfig", "SECOND_PASS_CENTRES", "SETTING_RANGES", "RENAMED_SETTINGS", "UNCALIBRATED_COUNTS_PER_KEV",
            "EMISSION_ESTIMATORS", "TWO_STAGE_SETTINGS"]
 
 SECOND_PASS_CENTRES = ("conversion_point", "weighted_centroid")
@@ -72,6 +73,28 @@ SETTING_NOTES = {
                           'moment analysis, columns emission_rad, conv_x_mm, conv_y_mm, always written) or '
                           '"skeleton" (the centre line of long tracks with scikit-image, skeleton_* columns; slow); '
                           "docs/methods.md section 11",
+}
+
+#: accepted range of every numeric setting: (lowest, highest, unit in messages). The settings reach the compiled
+#: kernel as machine numbers, so each is checked here, exactly, before any conversion.
+SETTING_RANGES: dict[str, tuple[float, float, str]] = {
+    # the signal is int16: a threshold above 32767 ADC counts would let no pixel through
+    "threshold_adc": (0.0, 32767.0, " ADC counts"),
+    # a main cluster has at most as many pixels as the largest chip (hexgrid.MAX_CHIP_SIDE squared)
+    "min_pixels": (1, MAX_CHIP_SIDE * MAX_CHIP_SIDE, " pixels"),
+    # in units of the track's rms length; no pixel of a track lies 100 rms lengths from its centroid (common
+    # practice: the published defaults are 1.5 and 3.5)
+    "start_search_inner_rms": (0.0, 100.0, " rms lengths"),
+    "start_search_outer_rms": (0.0, 100.0, " rms lengths"),
+    # > 0 (checked separately); 1000 mm is far beyond any chip
+    "second_pass_length_mm": (0.0, 1000.0, " mm"),
+    # wide enough for any readout (the simulator's designs have about 3000); within it energies stay finite and
+    # fit the float32 energy_kev column (32767 ADC x 2**30 pixels / 1e-6)
+    "counts_per_kev": (1e-6, 1e9, " ADC counts per keV"),
+    # an int16 signal reaches at most 32767; 32768 means "never saturated"
+    "saturation_adc": (1, 32768, " ADC counts"),
+    # per-pixel thresholds are clipped to the int16 range anyway; above 1000 times the noise is a mistake
+    "threshold_noise_rms": (0.0, 1000.0, " times the pixel noise"),
 }
 
 #: values renamed the same way (setting -> {old value: new value})
@@ -137,6 +160,12 @@ class ReconConfig:
         (``docs/methods.md`` §11: 4 % above the two-stage analysis at 5.9 and 8 keV in He/DME, 10 % at 20 keV in
         Ar/DME, equal at 2.7-3.7 keV); ``"two-stage"`` is the classic analysis alone.
 
+    Raises
+    ------
+    ValueError
+        A setting of the wrong type, not finite or outside its range (:data:`SETTING_RANGES`); the message names
+        the setting, the range and the value given.
+
     Examples
     --------
     >>> config = ReconConfig(threshold_adc=15, bad_pixels=[(10, 20)])
@@ -161,44 +190,47 @@ class ReconConfig:
 
     def __post_init__(self):
         def number(name, value, *, integer=False):
-            if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
-                raise ValueError(f"'{name}' must be a number (got {value!r})")
-            if integer:
-                if int(value) != value:
+            """The value as a float (int with ``integer``), checked for type, finiteness and its range."""
+            low, high, unit = SETTING_RANGES[name]
+            kind, low, high = ("an integer", f"{low}", f"{high}") if integer else ("a number", f"{low:g}", f"{high:g}")
+            expected = f"'{name}' must be {kind} between {low} and {high}{unit}"
+            low, high = SETTING_RANGES[name][:2]
+            if isinstance(value, bool | np.bool_) or not isinstance(value, int | float | np.integer | np.floating):
+                raise ValueError(f"{expected} (got {value!r})")
+            if isinstance(value, float | np.floating):
+                if not math.isfinite(value):
+                    raise ValueError(f"'{name}' must be finite (got {value!r})")
+                if integer and not float(value).is_integer():
                     raise ValueError(f"'{name}' must be an integer (got {value!r})")
-                value = int(value)
-            else:
-                value = float(value)
-            if not math.isfinite(value):
-                raise ValueError(f"'{name}' must be finite (got {value!r})")
+            # compare exactly (Python int or float) before converting: 10**400 or 1e20 never reach the kernel
+            exact = int(value) if integer or isinstance(value, int | np.integer) else float(value)
+            if not low <= exact <= high:
+                raise ValueError(f"{expected} (got {value!r})")
+            value = int(exact) if integer else float(exact)
             object.__setattr__(self, name, value)
             return value
 
-        if number("threshold_adc", self.threshold_adc) < 0:
-            raise ValueError(f"'threshold_adc' must be >= 0 (got {self.threshold_adc})")
-        if number("min_pixels", self.min_pixels, integer=True) < 1:
-            raise ValueError(f"'min_pixels' must be >= 1 (got {self.min_pixels})")
-        if number("start_search_inner_rms", self.start_search_inner_rms) < 0:
-            raise ValueError(f"'start_search_inner_rms' must be >= 0 (got {self.start_search_inner_rms})")
+        number("threshold_adc", self.threshold_adc)
+        number("min_pixels", self.min_pixels, integer=True)
+        number("start_search_inner_rms", self.start_search_inner_rms)
         if number("start_search_outer_rms", self.start_search_outer_rms) <= self.start_search_inner_rms:
             raise ValueError(f"'start_search_outer_rms' must be > start_search_inner_rms = "
                              f"{self.start_search_inner_rms} (got {self.start_search_outer_rms})")
         if number("second_pass_length_mm", self.second_pass_length_mm) <= 0:
             raise ValueError(f"'second_pass_length_mm' must be > 0 (got {self.second_pass_length_mm})")
-        if self.second_pass_centre not in SECOND_PASS_CENTRES:
+        if not isinstance(self.second_pass_centre, str) or self.second_pass_centre not in SECOND_PASS_CENTRES:
             raise ValueError(f"'second_pass_centre' must be one of {SECOND_PASS_CENTRES} "
                              f"(got {self.second_pass_centre!r})")
-        if self.counts_per_kev is not None and number("counts_per_kev", self.counts_per_kev) <= 0:
-            raise ValueError(f"'counts_per_kev' must be > 0 (got {self.counts_per_kev})")
+        if self.counts_per_kev is not None:
+            number("counts_per_kev", self.counts_per_kev)
         number("saturation_adc", self.saturation_adc, integer=True)
         object.__setattr__(self, "bad_pixels", self._normalise_bad_pixels(self.bad_pixels))
         if isinstance(self.pixel_map, os.PathLike):
             object.__setattr__(self, "pixel_map", os.fspath(self.pixel_map))
         if not isinstance(self.pixel_map, str):
             raise ValueError(f"'pixel_map' must be the path of a pixel-map file, or empty (got {self.pixel_map!r})")
-        if number("threshold_noise_rms", self.threshold_noise_rms) < 0:
-            raise ValueError(f"'threshold_noise_rms' must be >= 0 (got {self.threshold_noise_rms})")
-        if self.emission_estimator not in EMISSION_ESTIMATORS:
+        number("threshold_noise_rms", self.threshold_noise_rms)
+        if not isinstance(self.emission_estimator, str) or self.emission_estimator not in EMISSION_ESTIMATORS:
             raise ValueError(f"'emission_estimator' must be one of {EMISSION_ESTIMATORS} "
                              f"(got {self.emission_estimator!r})")
         if self.threshold_noise_rms > 0 and not self.pixel_map:
@@ -220,6 +252,10 @@ class ReconConfig:
             if (arr < 0).any():
                 first = arr[arr.min(axis=1) < 0][0].tolist()
                 raise ValueError(f"'bad_pixels' must hold non-negative (column, row) pairs (got {first})")
+            if int(arr.max()) >= MAX_CHIP_SIDE:  # checked before the cast to int64 (a uint64 value would wrap)
+                first = arr[arr.max(axis=1) >= MAX_CHIP_SIDE][0].tolist()
+                raise ValueError(f"'bad_pixels' must hold (column, row) pairs below {MAX_CHIP_SIDE}, the largest "
+                                 f"chip side (got {first})")
             pairs = arr
         pairs = np.unique(pairs.astype(np.int64), axis=0) if len(pairs) else pairs
         # sort by row, then column (the order of pixels on the chip)
