@@ -25,6 +25,7 @@ or directly from the ragged arrays with ``EventBatch(roi=..., start=..., signal=
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -35,7 +36,28 @@ __all__ = ["Event", "EventBatch", "EventBatchError", "find_bad_events"]
 
 
 class EventBatchError(ValueError):
-    """An event batch whose arrays are inconsistent; the message names the first bad event."""
+    """An event batch whose arrays are inconsistent; the message names the first bad event.
+
+    Attributes
+    ----------
+    field : str or None
+        The array at fault (``"roi"``, ``"start"``, ``"signal"``, ``"time_s"``, ``"trigger_id"``, ``"index"``,
+        ``"bad"``, ...), when one is.
+    event : int or None
+        Batch position of the first bad event, when the fault belongs to an event.
+    """
+
+    def __init__(self, message, *, field=None, event=None):
+        super().__init__(message)
+        self.field = field
+        self.event = event
+
+    def __reduce__(self):  # keep the attributes across process pools
+        return _rebuild_error, (str(self), self.field, self.event)
+
+
+def _rebuild_error(message, field, event):
+    return EventBatchError(message, field=field, event=event)
 
 
 @dataclass(frozen=True)
@@ -140,25 +162,126 @@ def find_bad_events(roi, start, n_signal, grid: HexGrid, first_index: int = 0):
     return indices + first_index, reasons
 
 
-def _as_array(name, value, dtype, ndim):
-    arr = np.asarray(value)
+#: largest integer magnitude below which every integer is exact in float64 (53-bit significand)
+_FLOAT64_EXACT_INT = 2**53
+
+
+def _misfits(arr: np.ndarray, target: np.dtype):
+    """Where ``arr`` cannot be held exactly in ``target``: a boolean mask, or a text when its dtype never can.
+
+    Every check is exact and done before any cast: integer limits are compared as integers (or as the powers of
+    two that bound them, which every float holds exactly), floats must be finite and integral to become integers,
+    and integers must round-trip to become float64.
+    """
+    kind = arr.dtype.kind
+    if target.kind == "b":
+        return None if kind == "b" else f"booleans (got dtype {arr.dtype})"
+    if target.kind == "i":
+        info = np.iinfo(target)
+        what = f"integers from {info.min} to {info.max}"
+        if kind == "i":
+            lo, hi = arr.min(), arr.max()
+            if lo >= info.min and hi <= info.max:
+                return np.zeros(arr.shape, bool)
+            return (arr < info.min) | (arr > info.max)
+        if kind == "u":
+            return arr > np.uint64(info.max)
+        if kind == "f":
+            work = arr.astype(np.result_type(arr.dtype, np.float64))  # exact: float16/32 -> float64
+            with np.errstate(invalid="ignore"):
+                return (~np.isfinite(work) | (np.floor(work) != work) | (work < float(info.min))
+                        | (work >= float(info.max + 1)))
+        if kind == "O":
+            def fits(v):
+                if isinstance(v, bool | np.bool_):
+                    return False
+                if isinstance(v, int | np.integer):
+                    return info.min <= int(v) <= info.max
+                if isinstance(v, float | np.floating):
+                    return math.isfinite(v) and float(v).is_integer() and info.min <= int(v) <= info.max
+                return False
+
+            return np.array([not fits(v) for v in arr.flat], bool).reshape(arr.shape)
+        return f"{what} (got dtype {arr.dtype})"
+    # float64
+    if kind == "f":
+        if arr.dtype.itemsize <= 8:
+            return np.zeros(arr.shape, bool)
+        with np.errstate(over="ignore", invalid="ignore"):
+            cast = arr.astype(np.float64)
+            return (cast != arr) & ~np.isnan(arr)
+    if kind in "iu":
+        if arr.dtype.itemsize <= 4:
+            return np.zeros(arr.shape, bool)
+        cast = arr.astype(np.float64)
+        bad = cast >= (2.0**64 if kind == "u" else 2.0**63)
+        ok = ~bad
+        bad[ok] = cast[ok].astype(arr.dtype) != arr[ok]
+        return bad
+    if kind == "O":
+        def exact(v):
+            if isinstance(v, bool | np.bool_):
+                return False
+            if isinstance(v, float | np.floating):
+                return True
+            if isinstance(v, int | np.integer):
+                return abs(int(v)) <= _FLOAT64_EXACT_INT or (abs(int(v)) < 2**1024 and int(float(v)) == int(v))
+            return False
+
+        return np.array([not exact(v) for v in arr.flat], bool).reshape(arr.shape)
+    return f"numbers (got dtype {arr.dtype})"
+
+
+def _exact_array(name, value, dtype, ndim, where):
+    """``value`` as a contiguous ``dtype`` array, refused with :class:`EventBatchError` unless held exactly.
+
+    ``where(k)`` describes flat element ``k``: ``(text, batch position or None)``.
+    """
+    target = np.dtype(dtype)
+    try:
+        arr = np.asarray(value)
+    except (ValueError, TypeError, OverflowError) as err:  # ragged nested lists and the like
+        raise EventBatchError(f"'{name}' must be a {ndim}-D array of {target.name} ({err})", field=name) from None
     if arr.ndim != ndim:
-        raise EventBatchError(f"'{name}' must be {ndim}-D (got shape {arr.shape})")
-    if arr.dtype != dtype:
-        integral_floats = np.issubdtype(dtype, np.integer) and arr.dtype.kind == "f"
-        if arr.size and not integral_floats and not np.can_cast(arr.dtype, dtype, casting="same_kind"):
-            raise EventBatchError(f"'{name}' must be {np.dtype(dtype).name} (got {arr.dtype})")
-        if np.issubdtype(dtype, np.integer) and arr.size:
-            info = np.iinfo(dtype)
-            if np.issubdtype(arr.dtype, np.floating) and not np.all(np.equal(np.mod(arr, 1), 0)):
-                raise EventBatchError(f"'{name}' must hold integers (got non-integer {arr.dtype} values)")
-            if arr.min() < info.min or arr.max() > info.max:
-                raise EventBatchError(
-                    f"'{name}' values must fit in {np.dtype(dtype).name} "
-                    f"(got range {arr.min()}..{arr.max()})"
-                )
-        arr = arr.astype(dtype)
-    return np.ascontiguousarray(arr)
+        raise EventBatchError(f"'{name}' must be {ndim}-D (got shape {arr.shape})", field=name)
+    if arr.dtype == target:
+        return np.ascontiguousarray(arr)
+    if arr.size == 0:
+        if arr.dtype.kind not in "biufO":
+            raise EventBatchError(f"'{name}' must be {target.name} (got dtype {arr.dtype})", field=name)
+        return np.zeros(arr.shape, target)
+    bad = _misfits(arr, target)
+    expected = {"b": "booleans", "i": f"{target.name} values", "f": "float64 values"}[target.kind]
+    if isinstance(bad, str):
+        text, position = where(0)
+        raise EventBatchError(f"'{name}' must hold {bad}: first bad value at {text}", field=name, event=position)
+    if bad is not None and bad.any():
+        flat = np.flatnonzero(bad.ravel())
+        k = int(flat[0])
+        value = arr.flat[k]
+        shown = value.item() if isinstance(value, np.generic) else value
+        text, position = where(k)
+        if target.kind == "i":
+            info = np.iinfo(target)
+            expected += f" (integers from {info.min} to {info.max})"
+        else:
+            expected += " (each exactly representable in float64)"
+        more = f"; {len(flat) - 1} more bad values" if len(flat) > 1 else ""
+        raise EventBatchError(f"'{name}' must hold {expected}: {text} is {shown!r} ({arr.dtype}){more}",
+                              field=name, event=position)
+    if arr.dtype.kind == "O":
+        values = [int(v) if target.kind == "i" else float(v) for v in arr.flat]
+        return np.array(values, target).reshape(arr.shape)
+    with np.errstate(over="ignore", invalid="ignore"):  # every value was checked to be exact
+        return np.ascontiguousarray(arr.astype(target))
+
+
+def _as_array(name, value, dtype, ndim):
+    """``value`` as an exact ``dtype`` array; errors name the element (no event layout known)."""
+    def where(k):
+        return f"{name}[{k}]", None
+
+    return _exact_array(name, value, dtype, ndim, where)
 
 
 @dataclass(frozen=True, eq=False)
@@ -204,30 +327,72 @@ class EventBatch:
     pedestal_subtracted: bool = True
 
     def __post_init__(self):
-        roi = _as_array("roi", self.roi, np.int32, 2)
+        if not isinstance(self.grid, HexGrid):
+            raise EventBatchError(f"'grid' must be a HexGrid (got {type(self.grid).__name__})", field="grid")
+        index = None
+        if self.index is not None:
+            index = _exact_array("index", self.index, np.int64, 1, lambda k: (f"batch position {k}, index[{k}]", k))
+
+        def event_at(position, what):
+            named = index is not None and position < len(index)
+            return (f"event {int(index[position]) if named else position} (batch position {position}), {what}",
+                    position)
+
+        roi_names = ("first column", "first row", "number of columns", "number of rows")
+        roi = _exact_array("roi", self.roi, np.int32, 2,
+                           lambda k: event_at(k // 4, f"roi[{k // 4}, {k % 4}] ({roi_names[k % 4]})"))
         if roi.shape[1:] != (4,) and roi.size:
-            raise EventBatchError(f"'roi' must have shape (N, 4) (got {roi.shape})")
+            raise EventBatchError(f"'roi' must have shape (N, 4) (got {roi.shape})", field="roi")
         roi = roi.reshape(-1, 4)
         n = len(roi)
-        start = _as_array("start", self.start, np.int64, 1)
-        signal = _as_array("signal", self.signal, np.int16, 1)
+        if index is None:
+            index = np.arange(n, dtype=np.int64)
+        elif len(index) != n:
+            raise EventBatchError(f"'index' must have one entry per event, N = {n} (got {len(index)})",
+                                  field="index")
+
+        def start_entry(k):
+            if k < n:
+                return event_at(k, f"start[{k}] (where the event's pixels begin)")
+            return event_at(n - 1, f"start[{k}] (where the last event's pixels end)") if n else (f"start[{k}]", None)
+
+        start = _exact_array("start", self.start, np.int64, 1, start_entry)
         if len(start) != n + 1:
-            raise EventBatchError(f"'start' must have N + 1 = {n + 1} entries for {n} events (got {len(start)})")
-        time_s = np.zeros(n) if self.time_s is None else _as_array("time_s", self.time_s, np.float64, 1)
-        index = np.arange(n, dtype=np.int64) if self.index is None else _as_array("index", self.index, np.int64, 1)
-        trigger_id = index.copy() if self.trigger_id is None else _as_array("trigger_id", self.trigger_id, np.int64, 1)
-        bad = np.zeros(n, dtype=bool) if self.bad is None else _as_array("bad", self.bad, np.bool_, 1)
-        for name, arr in (("time_s", time_s), ("trigger_id", trigger_id), ("index", index), ("bad", bad)):
+            raise EventBatchError(f"'start' must have N + 1 = {n + 1} entries for {n} events (got {len(start)})",
+                                  field="start")
+
+        def pixel_owner(k):
+            # the event whose pixel range holds signal[k] (when the offsets increase; else only the position)
+            if n and np.all(start[1:] >= start[:-1]) and start[0] <= k < start[-1]:
+                i = int(np.searchsorted(start, k, side="right")) - 1
+                return event_at(i, f"signal[{k}] (pixel {k - int(start[i])} of the event)")
+            return f"signal[{k}] (outside every event's pixel range)", None
+
+        signal = _exact_array("signal", self.signal, np.int16, 1, pixel_owner)
+        per_event = {}
+        for name, value, dtype in (("time_s", self.time_s, np.float64), ("trigger_id", self.trigger_id, np.int64),
+                                   ("bad", self.bad, np.bool_)):
+            if value is None:
+                continue
+            arr = _exact_array(name, value, dtype, 1, lambda k, name=name: event_at(k, f"{name}[{k}]")
+                               if k < n else (f"{name}[{k}]", None))
             if len(arr) != n:
-                raise EventBatchError(f"'{name}' must have one entry per event, N = {n} (got {len(arr)})")
+                raise EventBatchError(f"'{name}' must have one entry per event, N = {n} (got {len(arr)})",
+                                      field=name)
+            per_event[name] = arr
+        time_s = per_event.get("time_s", np.zeros(n))
+        trigger_id = per_event.get("trigger_id", index.copy())
+        bad = per_event.get("bad", np.zeros(n, dtype=bool))
         truth = {}
         for key, values in (self.truth or {}).items():
             values = np.asarray(values)
             if values.ndim != 1 or len(values) != n:
-                raise EventBatchError(f"truth '{key}' must be 1-D with N = {n} entries (got shape {values.shape})")
+                raise EventBatchError(f"truth '{key}' must be 1-D with N = {n} entries (got shape {values.shape})",
+                                      field=f"truth/{key}")
             truth[key] = values
         if not isinstance(self.pedestal_subtracted, bool | np.bool_):
-            raise EventBatchError(f"'pedestal_subtracted' must be True or False (got {self.pedestal_subtracted!r})")
+            raise EventBatchError(f"'pedestal_subtracted' must be True or False (got {self.pedestal_subtracted!r})",
+                                  field="pedestal_subtracted")
         for name, value in (("roi", roi), ("start", start), ("signal", signal), ("time_s", time_s),
                             ("trigger_id", trigger_id), ("index", index), ("bad", bad), ("truth", truth),
                             ("pedestal_subtracted", bool(self.pedestal_subtracted))):
@@ -238,7 +403,8 @@ class EventBatch:
                 i = int(indices[0])
                 raise EventBatchError(
                     f"event {int(index[i])} (batch position {i}) is malformed: {reasons[0]}"
-                    + (f" ({len(indices) - 1} more bad events)" if len(indices) > 1 else "")
+                    + (f" ({len(indices) - 1} more bad events)" if len(indices) > 1 else ""),
+                    field=reasons[0].split("'")[1], event=i,
                 )
 
     # ------------------------------------------------------------------ construction helpers
@@ -257,12 +423,20 @@ class EventBatch:
         time_s, trigger_id, truth, pedestal_subtracted : optional, as for :class:`EventBatch`.
         """
         images = [np.asarray(img) for img in images]
-        origins = np.asarray(origins, dtype=np.int64).reshape(-1, 2)
+        try:
+            ndim = min(max(np.ndim(origins), 1), 2)
+        except ValueError:  # ragged: _as_array names it
+            ndim = 2
+        origins = _as_array("origins", origins, np.int64, ndim)
+        if origins.size % 2 or (origins.ndim == 2 and origins.shape[1] != 2) or origins.ndim > 2:
+            raise EventBatchError(f"'origins' must have shape (N, 2) (got {origins.shape})", field="origins")
+        origins = origins.reshape(-1, 2)
         if len(origins) != len(images):
-            raise EventBatchError(f"got {len(images)} images but {len(origins)} origins")
+            raise EventBatchError(f"got {len(images)} images but {len(origins)} origins", field="origins")
         for i, img in enumerate(images):
             if img.ndim != 2:
-                raise EventBatchError(f"image {i} must be 2-D [row, column] (got shape {img.shape})")
+                raise EventBatchError(f"image {i} must be 2-D [row, column] (got shape {img.shape})", field="images",
+                                      event=i)
         shapes = np.array([img.shape for img in images], dtype=np.int64).reshape(-1, 2)
         roi = np.column_stack([origins, shapes[:, 1], shapes[:, 0]]) if len(images) else np.zeros((0, 4))
         start = np.concatenate([[0], np.cumsum(shapes[:, 0] * shapes[:, 1])])

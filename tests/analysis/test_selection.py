@@ -152,7 +152,7 @@ def test_selection_file_round_trip(tmp_path, table):
 # ------------------------------------------------------------------------------------------ the default selection
 # The classification written in docs/table-format.md ("Status bits"): failures leave no emission angle or one the
 # reconstruction declares meaningless; a track touching the ROI edge is a warning.
-DOCUMENTED_FAILURES = ("MALFORMED_INPUT", "NO_SIGNAL", "TOO_FEW_PIXELS", "SINGLE_PIXEL", "ROUND")
+DOCUMENTED_FAILURES = ("MALFORMED_INPUT", "NO_SIGNAL", "TOO_FEW_PIXELS", "SINGLE_PIXEL", "ROUND", "NOT_FINITE")
 
 
 def test_default_selection_is_angle_and_no_failure_bit(table):

@@ -87,7 +87,8 @@ def test_old_setting_names_are_refused_with_the_new_name(tmp_path, text, new):
     ({"start_search_inner_rms": "1"}, "'start_search_inner_rms' must be a number"),
     ({"bad_pixels": [(1, 2, 3)]}, "'bad_pixels' must be a list of (column, row)"),
     ({"bad_pixels": [(-1, 2)]}, "non-negative"),
-    ({"bad_pixels": np.array([[2**64 - 1, 2]], np.uint64)}, f"below 32768, the largest chip side (got [{2**64 - 1}, 2])"),
+    ({"bad_pixels": np.array([[2**64 - 1, 2]], np.uint64)},
+     f"below 32768, the largest chip side (got [{2**64 - 1}, 2])"),
 ])
 def test_invalid_values_name_the_field(kwargs, text):
     with pytest.raises(ValueError) as err:

@@ -16,7 +16,7 @@ DOCUMENTED_COLUMNS = ["trigger_id", "time_s", "status", "n_pixels", "n_clusters"
                       "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad", "emission_rad",
                       "m2_major_mm2", "m2_minor_mm2", "m3_major_mm3", "peak_adc"]
 DOCUMENTED_DTYPES = {"trigger_id": "int64", "time_s": "float64", "status": "uint16", "n_pixels": "int32",
-                     "n_clusters": "int16", "peak_adc": "int16"}
+                     "n_clusters": "int32", "peak_adc": "int16"}
 
 
 @pytest.fixture

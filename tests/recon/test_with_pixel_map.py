@@ -176,7 +176,7 @@ def test_bad_map_files_are_named(tmp_path):
 def test_config_settings(tmp_path):
     with pytest.raises(ValueError, match=r"'threshold_noise_rms' = 5 needs a 'pixel_map'"):
         ReconConfig(threshold_noise_rms=5)
-    with pytest.raises(ValueError, match="'threshold_noise_rms' must be >= 0"):
+    with pytest.raises(ValueError, match="'threshold_noise_rms' must be a number between 0 and 1000"):
         ReconConfig(pixel_map="m.h5", threshold_noise_rms=-1)
     config = ReconConfig(pixel_map="maps/chip.h5", threshold_noise_rms=4.5)
     assert ReconConfig.from_toml(config.to_toml()) == config

@@ -10,10 +10,10 @@ from ..cli import CommandError, flags_for_parameters
 
 #: the default selection in the words of ``--help``
 DEFAULT_SELECTION_HELP = ("Default selection, always applied first: events with an emission angle and no failure "
-                          "status bit (failures: MALFORMED_INPUT, NO_SIGNAL, TOO_FEW_PIXELS, SINGLE_PIXEL, ROUND; "
-                          "see trackfit.recon.status). Warning bits (e.g. ROI_BORDER, a track touching the ROI "
-                          "edge) are kept unless --{prefix}reject-warnings is given. Every option below adds a cut "
-                          "to it.")
+                          "status bit (failures: MALFORMED_INPUT, NO_SIGNAL, TOO_FEW_PIXELS, SINGLE_PIXEL, ROUND, "
+                          "NOT_FINITE; see trackfit.recon.status). Warning bits (e.g. ROI_BORDER, a track touching "
+                          "the ROI edge) are kept unless --{prefix}reject-warnings is given. Every option below adds "
+                          "a cut to it.")
 
 
 def add_cut_options(parser, *, prefix: str = "", what: str = "events", calibrated: bool = True) -> None:

@@ -70,7 +70,8 @@ COLUMN_DOCS: dict[str, tuple[str, str, str]] = {
     "status": ("uint16", "", "reconstruction status bit flags, 0 = fully reconstructed "
                              "(see trackfit.recon.status.Status)"),
     "n_pixels": ("int32", "", "pixels in the main cluster"),
-    "n_clusters": ("int16", "", "clusters found in the ROI (6-neighbour connected components)"),
+    "n_clusters": ("int32", "", "clusters found in the ROI (6-neighbour connected components); int16 in older "
+                                "tables"),
     "pulse_height": ("float32", "ADC", "summed signal of the main cluster"),
     "energy_kev": ("float32", "keV", "pulse_height / counts_per_kev"),
     "centroid_x_mm": ("float32", "mm", "charge centroid of the main cluster, x"),

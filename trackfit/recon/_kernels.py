@@ -17,7 +17,8 @@ import numpy as np
 from .._jit import jit
 from .status import Status
 
-__all__ = ["reconstruct_range", "subtract_pedestals", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE"]
+__all__ = ["reconstruct_range", "subtract_pedestals", "FLOAT_COLUMNS", "INT_COLUMNS", "DEGENERACY_TOLERANCE",
+           "FLOAT32_MAX", "MAX_ROI_PIXELS"]
 
 #: column order of the float64 output array of the kernel
 FLOAT_COLUMNS = ("pulse_height", "energy_kev", "centroid_x_mm", "centroid_y_mm", "conv_x_mm", "conv_y_mm", "axis_rad",
@@ -40,6 +41,12 @@ _NO_CONV = int(Status.NO_CONVERSION_PIXELS)
 _SECOND = int(Status.SECOND_PASS_FALLBACK)
 _BORDER = int(Status.ROI_BORDER)
 _SATURATED = int(Status.SATURATED)
+_NOT_FINITE = int(Status.NOT_FINITE)
+
+#: largest finite float32: the float columns of the table are float32, so a larger value would be stored as inf
+FLOAT32_MAX = float(np.finfo(np.float32).max)
+#: largest ROI area the kernel indexes (its pixel indices and cluster labels are int32)
+MAX_ROI_PIXELS = 2**31 - 1
 
 _F_PH, _F_E, _F_BX, _F_BY, _F_CX, _F_CY, _F_AXIS, _F_EMIS, _F_M2L, _F_M2T, _F_M3 = range(11)
 _I_STATUS, _I_NPIX, _I_NCLUS, _I_PEAK, _I_NCONV = range(5)
@@ -159,9 +166,9 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
     out_f : float64 (N, len(FLOAT_COLUMNS)); out_i : int64 (N, len(INT_COLUMNS))
     """
     max_area = 1
-    for i in range(lo, hi):
+    for i in range(lo, hi):  # the largest area of the events that lie in the signal array (others are malformed)
         area = start[i + 1] - start[i]
-        if area > max_area:
+        if area > max_area and start[i] >= 0 and start[i + 1] <= signal.size:
             max_area = area
     label = np.full(max_area, -1, np.int32)  # -1: not hit; 0: hit, unlabelled; >0: cluster id
     hits = np.empty(max_area, np.int32)
@@ -196,7 +203,8 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
         out_i[i, _I_NCLUS] = 0
         out_i[i, _I_PEAK] = 0
         out_i[i, _I_NCONV] = 0
-        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or s0 < 0 or start[i + 1] > signal.size or (
+        if bad[i] or nc * nr != area or nc < 0 or nr < 0 or area > MAX_ROI_PIXELS or s0 < 0 or (
+                start[i + 1] > signal.size) or (
                 (use_mask or use_thresholds) and (
                 c0 < 0 or r0 < 0 or c0 + nc > mask_columns or (r0 + nr) * mask_columns > chip_size)):
             out_i[i, _I_STATUS] = _MALFORMED
@@ -453,3 +461,18 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
         if fallback:
             status |= _SECOND
         out_i[i, _I_STATUS] = status
+
+    # ---- a value that should be defined but is infinite, NaN or beyond the float32 range of its table column (an
+    # energy scale or geometry far outside the physical range) gets NOT_FINITE; the NaN that other bits explain
+    # (no signal, malformed; no axis after SINGLE_PIXEL or ROUND) do not
+    for i in range(lo, hi):
+        status = out_i[i, _I_STATUS]
+        if status & (_MALFORMED | _NO_SIGNAL):
+            continue
+        no_axis = (status & (_SINGLE | _ROUND)) != 0
+        for k in range(out_f.shape[1]):
+            if no_axis and (k == _F_AXIS or k == _F_EMIS or k == _F_M3):
+                continue
+            if not abs(out_f[i, k]) <= FLOAT32_MAX:  # also true for NaN
+                out_i[i, _I_STATUS] = status | _NOT_FINITE
+                break

@@ -42,7 +42,29 @@ def _wrap(angle):
     return angle
 
 
+def _flag_not_finite(out: dict) -> dict:
+    """Set NOT_FINITE when a value that should be defined is infinite, NaN or beyond the float32 range."""
+    status = out["status"]
+    if status & (Status.MALFORMED_INPUT | Status.NO_SIGNAL):
+        return out
+    names = list(FLOAT_COLUMNS)
+    if status & (Status.SINGLE_PIXEL | Status.ROUND):  # no axis: these are NaN by definition
+        names = [name for name in names if name not in ("axis_rad", "emission_rad", "m3_major_mm3")]
+    values = np.array([out[name] for name in names], dtype=np.float64)
+    if not np.all(np.abs(values) <= np.finfo(np.float32).max):
+        out["status"] = int(status | Status.NOT_FINITE)
+    return out
+
+
 def reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False, thresholds=None, pedestal=None) -> dict:
+    """Reconstruct one event (see :func:`_reconstruct_event`), with the NOT_FINITE check of every value."""
+    with np.errstate(all="ignore"):  # overflow and NaN are flagged with NOT_FINITE, as by the kernel
+        out = _reconstruct_event(signal, roi, grid, config, mask=mask, bad=bad, thresholds=thresholds,
+                                 pedestal=pedestal)
+    return _flag_not_finite(out)
+
+
+def _reconstruct_event(signal, roi, grid, config, *, mask=None, bad=False, thresholds=None, pedestal=None) -> dict:
     """Reconstruct one event.
 
     Parameters

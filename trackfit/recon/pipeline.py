@@ -44,7 +44,9 @@ TABLE_COLUMNS: dict[str, np.dtype] = {
     "time_s": np.dtype(np.float64),
     "status": np.dtype(np.uint16),
     "n_pixels": np.dtype(np.int32),
-    "n_clusters": np.dtype(np.int16),
+    # int32, not int16: an event has at most as many clusters as ROI pixels, at most 2**30 on the largest chip
+    # (hexgrid.MAX_CHIP_SIDE), so int32 cannot wrap; int16 wrapped above 32767 isolated hits
+    "n_clusters": np.dtype(np.int32),
     "pulse_height": np.dtype(np.float32),
     "energy_kev": np.dtype(np.float32),
     "centroid_x_mm": np.dtype(np.float32),
@@ -204,7 +206,8 @@ def _columns(batch: EventBatch, out_f, out_i, estimates=None) -> dict[str, np.nd
     values = {"event_index": batch.index, "trigger_id": batch.trigger_id, "time_s": batch.time_s}
     values.update({name: out_f[:, k] for k, name in enumerate(FLOAT_COLUMNS)})
     values.update({name: out_i[:, k] for k, name in enumerate(INT_COLUMNS)})
-    columns = {name: np.ascontiguousarray(values[name], dtype=dtype) for name, dtype in TABLE_COLUMNS.items()}
+    with np.errstate(over="ignore"):  # a value beyond float32 becomes inf, and its event has the NOT_FINITE bit
+        columns = {name: np.ascontiguousarray(values[name], dtype=dtype) for name, dtype in TABLE_COLUMNS.items()}
     for name, values in (estimates or {}).items():  # the estimator's columns (trackfit.recon.estimators)
         columns[name] = np.ascontiguousarray(values, dtype=ESTIMATE_DTYPES[name])
     for key in sorted(batch.truth):

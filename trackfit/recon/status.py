@@ -5,8 +5,9 @@ warning (:data:`BIT_KIND`, with the reason in :data:`BIT_RATIONALE`):
 
 * **failures** (:data:`FAILURE_BITS`): the event has no emission angle, or one the reconstruction itself declares
   meaningless; it cannot take part in polarimetry. :data:`Status.MALFORMED_INPUT`, :data:`Status.NO_SIGNAL`,
-  :data:`Status.SINGLE_PIXEL`, :data:`Status.ROUND` (``emission_rad`` is NaN) and :data:`Status.TOO_FEW_PIXELS`
-  (an angle is computed, but from fewer pixels than ``min_pixels``, where the moments reflect the pixel shape);
+  :data:`Status.SINGLE_PIXEL`, :data:`Status.ROUND` (``emission_rad`` is NaN), :data:`Status.TOO_FEW_PIXELS`
+  (an angle is computed, but from fewer pixels than ``min_pixels``, where the moments reflect the pixel shape) and
+  :data:`Status.NOT_FINITE` (a value that should be defined is infinite or NaN);
 * **warnings** (:data:`WARNING_BITS`): a fallback or a caution; the emission angle is defined and usable, some other
   value may be less precise (a truncated track, a saturated pulse height, a first-pass angle).
 
@@ -47,6 +48,7 @@ class Status(enum.IntFlag):
     SECOND_PASS_FALLBACK = 1 << 8
     ROI_BORDER = 1 << 9
     SATURATED = 1 << 10
+    NOT_FINITE = 1 << 11
 
 
 #: union of the bits for which ``emission_rad`` is NaN (not a bit of its own)
@@ -76,6 +78,9 @@ STATUS_DOCS: dict[Status, str] = {
                                  "emission_rad = first-pass axis oriented from the conversion point along the track",
     Status.ROI_BORDER: "main cluster touches the ROI border: the track may be truncated",
     Status.SATURATED: "a main-cluster pixel reached saturation_adc: pulse_height underestimates the energy",
+    Status.NOT_FINITE: "a value that should be defined came out infinite, NaN or beyond the float32 range of its "
+                       "column (an energy scale or geometry far outside the physical range): the values are written "
+                       "as computed and cannot be trusted",
 }
 
 
@@ -98,10 +103,12 @@ BIT_RATIONALE: dict[Status, str] = {
     Status.ROI_BORDER: "the track may be truncated at the ROI edge (energy and angle may be biased for long "
                        "tracks); the event is reconstructed, and rejecting it is a choice of the analysis",
     Status.SATURATED: "the pulse height underestimates the energy; the angle is unaffected",
+    Status.NOT_FINITE: "a value that should be a number is not: the arithmetic left the float range, so no value of "
+                       "the event can be trusted",
 }
 #: bits that exclude an event from polarimetry (see :data:`BIT_RATIONALE`)
 FAILURE_BITS = Status(Status.MALFORMED_INPUT | Status.NO_SIGNAL | Status.TOO_FEW_PIXELS | Status.SINGLE_PIXEL
-                      | Status.ROUND)
+                      | Status.ROUND | Status.NOT_FINITE)
 #: bits after which the event is still usable; rejecting them is an explicit choice (``reject_warnings``)
 WARNING_BITS = Status(Status.COLLINEAR | Status.NO_SKEWNESS | Status.NO_CONVERSION_PIXELS
                       | Status.SECOND_PASS_FALLBACK | Status.ROI_BORDER | Status.SATURATED)
