@@ -331,7 +331,8 @@ class EventBatch:
             raise EventBatchError(f"'grid' must be a HexGrid (got {type(self.grid).__name__})", field="grid")
         index = None
         if self.index is not None:
-            index = _exact_array("index", self.index, np.int64, 1, lambda k: (f"batch position {k}, index[{k}]", k))
+            index = _exact_array("index", self.index, np.int64, 1,
+                                 lambda k: (f"index[{k}] (batch position {k})", k))
 
         def event_at(position, what):
             named = index is not None and position < len(index)

@@ -17,6 +17,7 @@ All conversions are vectorised over numpy arrays of any shape.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -81,14 +82,16 @@ class HexGrid:
         pitch = self.pitch_mm
         if isinstance(pitch, bool | np.bool_) or not isinstance(pitch, int | float | np.integer | np.floating):
             raise ValueError(f"'pitch_mm' must be a number of mm (got {pitch!r})")
-        if not (np.isfinite(pitch) and PITCH_RANGE_MM[0] <= pitch <= PITCH_RANGE_MM[1]):
+        # compared as Python numbers: exact for huge ints too (numpy.isfinite refuses ints beyond 64 bits)
+        exact = int(pitch) if isinstance(pitch, int | np.integer) else float(pitch)
+        if not ((isinstance(exact, int) or math.isfinite(exact)) and PITCH_RANGE_MM[0] <= exact <= PITCH_RANGE_MM[1]):
             raise ValueError(f"'pitch_mm' must be a finite number of mm between {PITCH_RANGE_MM[0]:g} and "
                              f"{PITCH_RANGE_MM[1]:g} (got {pitch!r})")
         for name in ("n_columns", "n_rows"):
             value = getattr(self, name)
             if isinstance(value, bool | np.bool_) or not isinstance(value, int | float | np.integer | np.floating):
                 raise ValueError(f"'{name}' must be an integer (got {value!r})")
-            if isinstance(value, float | np.floating) and not (np.isfinite(value) and float(value).is_integer()):
+            if isinstance(value, float | np.floating) and not (math.isfinite(value) and float(value).is_integer()):
                 raise ValueError(f"'{name}' must be an integer (got {value!r})")
             if not 1 <= int(value) <= MAX_CHIP_SIDE:
                 raise ValueError(f"'{name}' must be an integer between 1 and {MAX_CHIP_SIDE} (got {value!r})")
