@@ -63,7 +63,7 @@ def test_unknown_table_is_rejected_with_valid_list():
     ('[gas]\npressure_atm = -1.0\n', "'gas.pressure_atm' must be > 0 (got -1.0)"),
     ('[source]\npolarization_degree = 1.5\n', "'source.polarization_degree' must be between 0 and 1"),
     ('[source]\nbeam = "cone"\n', "'source.beam' must be one of"),
-    ('[readout]\npitch_mm = -0.05\n', "'pitch_mm' must be a finite number > 0 (got -0.05)"),
+    ('[readout]\npitch_mm = -0.05\n', "'pitch_mm' must be a finite number of mm between 0.0001 and 10 (got -0.05)"),
     ('[readout]\ntrigger_min_pixels = 0\n', "'readout.trigger_min_pixels' must be an integer >= 1"),
     ('[gas]\ngap_cm = "one"\n', "'gas.gap_cm' must be a number (got 'one')"),
     ('[source]\nline_energies_kev = [5.9, 6.5]\n', "'source.line_weights' must be a list of 2 weights"),
