@@ -21,6 +21,11 @@ images (one per event, indexed ``[row, column]``) and the chip coordinates of th
     batch = EventBatch.from_images(images, origins, grid=HexGrid())
 
 or directly from the ragged arrays with ``EventBatch(roi=..., start=..., signal=..., ...)``.
+
+The arrays may come in any numeric dtype; their values are held exactly or refused. A value the batch's dtype
+cannot hold (32768.0 for the int16 ``signal``, 2**63 for the int64 ``trigger_id``, a fraction, NaN, a bool where an
+integer is expected) raises :class:`EventBatchError` naming the array, the element and the first bad event
+(``.field``, ``.event``); nothing is rounded or wrapped around.
 """
 
 from __future__ import annotations
@@ -167,7 +172,8 @@ _FLOAT64_EXACT_INT = 2**53
 
 
 def _misfits(arr: np.ndarray, target: np.dtype):
-    """Where ``arr`` cannot be held exactly in ``target``: a boolean mask, or a text when its dtype never can.
+    """Where ``arr`` cannot be held exactly in ``target``: a boolean mask, a text when its dtype never can, or None
+    when every value fits (found from the extremes, without a mask, for integer input).
 
     Every check is exact and done before any cast: integer limits are compared as integers (or as the powers of
     two that bound them, which every float holds exactly), floats must be finite and integral to become integers,
@@ -180,12 +186,11 @@ def _misfits(arr: np.ndarray, target: np.dtype):
         info = np.iinfo(target)
         what = f"integers from {info.min} to {info.max}"
         if kind == "i":
-            lo, hi = arr.min(), arr.max()
-            if lo >= info.min and hi <= info.max:
-                return np.zeros(arr.shape, bool)
+            if arr.min() >= info.min and arr.max() <= info.max:
+                return None
             return (arr < info.min) | (arr > info.max)
         if kind == "u":
-            return arr > np.uint64(info.max)
+            return None if arr.max() <= np.uint64(info.max) else arr > np.uint64(info.max)
         if kind == "f":
             work = arr.astype(np.result_type(arr.dtype, np.float64))  # exact: float16/32 -> float64
             with np.errstate(invalid="ignore"):
@@ -206,13 +211,13 @@ def _misfits(arr: np.ndarray, target: np.dtype):
     # float64
     if kind == "f":
         if arr.dtype.itemsize <= 8:
-            return np.zeros(arr.shape, bool)
+            return None
         with np.errstate(over="ignore", invalid="ignore"):
             cast = arr.astype(np.float64)
             return (cast != arr) & ~np.isnan(arr)
     if kind in "iu":
         if arr.dtype.itemsize <= 4:
-            return np.zeros(arr.shape, bool)
+            return None
         cast = arr.astype(np.float64)
         bad = cast >= (2.0**64 if kind == "u" else 2.0**63)
         ok = ~bad

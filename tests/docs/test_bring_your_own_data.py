@@ -78,3 +78,14 @@ def test_a_bad_record_is_named(example, tmp_path):
     with pytest.raises(EventBatchError, match=r"event 37 \(batch position 17\) is malformed: 'roi': ROI outside"):
         example["convert_frames"](tmp_path / "in.bin", tmp_path / "out.h5", grid=grid, block_records=20)
     assert not (tmp_path / "out.h5").exists()
+
+
+def test_an_adc_value_beyond_int16_is_named_not_wrapped(example, tmp_path):
+    grid = HexGrid(n_columns=80, n_rows=70)
+    records = write_records(tmp_path / "in.bin", example, 50, grid)
+    records["window"][41, 3, 5] = 40000  # a uint16 ADC value the int16 signal cannot hold (numpy.iinfo(int16))
+    records.tofile(tmp_path / "in.bin")
+    with pytest.raises(EventBatchError, match=r"'signal' must hold int16 values .*: event 41 \(batch position 1\), "
+                                              r"signal\[\d+\] \(pixel 77 of the event\) is 40000 \(uint16\)"):
+        example["convert_frames"](tmp_path / "in.bin", tmp_path / "out.h5", grid=grid, block_records=40)
+    assert not (tmp_path / "out.h5").exists()
