@@ -86,7 +86,7 @@ CATALOGUE = [
     ("raw", "attribute /geometry:n_rows -> string-number", "/geometry", "'n_rows' must be an integer, stored as "
                                                                         "one (got text"),
     ("raw", "attribute /geometry:pitch_mm -> huge-float", "/geometry", "'pitch_mm' must be a finite number > 0 up "
-                                                                       "to 100"),
+                                                                       "to 10 "),
     ("raw", "attribute /geometry:pitch_mm -> nan", "/geometry", "'pitch_mm' must be a finite number"),
     ("raw", "attribute /geometry:pitch_mm -> string-number", "/geometry", "'pitch_mm' must be a number, stored as "
                                                                           "one"),

@@ -23,6 +23,8 @@ import numbers
 import h5py
 import numpy as np
 
+from ..hexgrid import MAX_CHIP_SIDE, PITCH_RANGE_MM
+
 __all__ = ["CheckedFile", "H5PY_ERRORS", "find_external_data", "external_data_message", "integer_attribute",
            "real_attribute", "text_attribute", "flag_attribute", "plain_value", "grid_from_attributes",
            "MAX_PIXELS_PER_SIDE", "MAX_PITCH_MM"]
@@ -310,11 +312,10 @@ def _kinds_text(kinds: str) -> str:
     return "a " + " or ".join(names[k] for k in kinds if k in names) + " dtype"
 
 
-#: the largest chip the readers accept: columns and rows per side, and the pixel pitch (mm). No hexagonal-pixel
-#: chip comes near (common practice: a few hundred pixels per side, pitches of tens of micrometres); the bounds
-#: only keep absurd headers (1e300 columns, a pitch of 1e300 mm) from reaching the geometry and its arithmetic
-MAX_PIXELS_PER_SIDE = 16_384
-MAX_PITCH_MM = 100.0
+#: the largest chip the readers accept, in pixels per side, and the largest pixel pitch (mm): the limits of
+#: :class:`~trackfit.hexgrid.HexGrid` itself, so that every file a writer can write is read back
+MAX_PIXELS_PER_SIDE = MAX_CHIP_SIDE
+MAX_PITCH_MM = PITCH_RANGE_MM[1]
 
 
 def grid_from_attributes(attrs: dict, fail):
@@ -323,6 +324,8 @@ def grid_from_attributes(attrs: dict, fail):
     from ..hexgrid import HexGrid
 
     pitch_mm = real_attribute(attrs, "pitch_mm", fail, positive=True, maximum=MAX_PITCH_MM)
+    if pitch_mm < PITCH_RANGE_MM[0]:
+        fail(f"attribute 'pitch_mm' must be at least {PITCH_RANGE_MM[0]:g} mm (got {pitch_mm!r})")
     n_columns = integer_attribute(attrs, "n_columns", fail, minimum=1, maximum=MAX_PIXELS_PER_SIDE)
     n_rows = integer_attribute(attrs, "n_rows", fail, minimum=1, maximum=MAX_PIXELS_PER_SIDE)
     shifted_rows = text_attribute(attrs, "shifted_rows", fail)
