@@ -110,6 +110,10 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"trackfit {_version()}")
     parser.add_argument("--debug", action="store_true",
                         help=f"show the Python traceback of an error (also: {DEBUG_VARIABLE}=1 in the environment)")
+    parser.add_argument("--allow-external-storage", action="store_true", dest="allow_external_everywhere",
+                        help="let every reader of this command read data stored in other files (HDF5 external "
+                        "links, external storage, virtual datasets with sources elsewhere); refused by default "
+                        "(also: TRACKFIT_ALLOW_EXTERNAL_STORAGE=1 in the environment)")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=ArgumentParser)
     for name in COMMAND_MODULES:
         importlib.import_module(f"trackfit.commands.{name}").register(subparsers)
@@ -160,6 +164,10 @@ def main(argv=None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    if args.allow_external_everywhere:  # in the environment, so that worker processes inherit it
+        from .io.structure import EXTERNAL_VARIABLE
+
+        os.environ[EXTERNAL_VARIABLE] = "1"
     debug = args.debug or os.environ.get(DEBUG_VARIABLE, "").strip().lower() not in ("", "0", "false", "no")
     command = f"trackfit {args.command}"
     try:

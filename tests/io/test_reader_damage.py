@@ -28,6 +28,7 @@ from trackfit.io.errors import FileFormatError
 from trackfit.io.heapcheck import damaged_global_heaps
 from trackfit.io.pixelmap import PixelMapFormatError
 from trackfit.io.raw import RawFormatError, open_raw
+from trackfit.io.structure import EXTERNAL_VARIABLE
 from trackfit.io.table import TableFormatError
 from trackfit.response import ResponseFormatError
 
@@ -321,6 +322,15 @@ def test_external_links_storage_and_virtual_datasets_are_refused_unless_allowed(
         with open_raw(path, allow_external=True) as reader:
             np.testing.assert_array_equal(reader.read_all().signal, signal[::-1])
     assert main(["info", "--allow-external-storage", str(linked)]) == 0
+    # every command: refused, then allowed by the global flag (which worker processes inherit through the environment)
+    monkeypatch.delenv(EXTERNAL_VARIABLE, raising=False)  # restored (absent) after the test
+    assert main(["reconstruct", str(linked), "-o", str(tmp_path / "refused.h5")]) == 2
+    assert "the data would come from another file" in capsys.readouterr().err
+    assert not (tmp_path / "refused.h5").exists()
+    assert main(["--allow-external-storage", "reconstruct", str(linked), "-o", str(tmp_path / "allowed.h5")]) == 0
+    assert os.environ[EXTERNAL_VARIABLE] == "1"
+    with h5py.File(tmp_path / "allowed.h5", "r") as f, open_raw(valid["raw"]) as reader:
+        assert f["events/status"].shape == (len(reader),)  # one row per event
 
 
 def test_a_virtual_dataset_inside_the_file_is_not_external(valid, tmp_path):

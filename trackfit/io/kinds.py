@@ -18,6 +18,7 @@ from .heapcheck import damaged_global_heaps
 from .structure import (
     H5PY_ERRORS,
     CheckedFile,
+    external_allowed,
     external_data_message,
     find_external_data,
     integer_attribute,
@@ -99,7 +100,7 @@ def open_file(path, *, what: str, error, allow_external: bool = False) -> tuple[
     The path must be a regular file (:func:`check_regular_file`) without damaged global heap collections
     (:func:`~trackfit.io.heapcheck.damaged_global_heaps`), the file HDF5 with readable root attributes, and
     no object may take its data from another file (:func:`~trackfit.io.structure.find_external_data`) unless
-    ``allow_external`` is True.
+    ``allow_external`` is True (or the environment allows it: :func:`~trackfit.io.structure.external_allowed`).
 
     Raises ``FileNotFoundError("<what> '<path>' does not exist")``, or ``error(path, "not a readable HDF5 file
     (...)")`` and ``error(path, message, dataset=name)`` (see :func:`open_kind`).
@@ -112,7 +113,7 @@ def open_file(path, *, what: str, error, allow_external: bool = False) -> tuple[
     try:
         checked = CheckedFile(f, path, error)
         attrs = checked.attributes("/")
-        if not allow_external:
+        if not external_allowed(allow_external):
             with checked.guard("/", "the objects of the file cannot be listed"):
                 external = find_external_data(f)
             if external:

@@ -27,16 +27,29 @@ from ..hexgrid import MAX_CHIP_SIDE, PITCH_RANGE_MM
 
 __all__ = ["CheckedFile", "H5PY_ERRORS", "find_external_data", "external_data_message", "integer_attribute",
            "real_attribute", "text_attribute", "flag_attribute", "plain_value", "grid_from_attributes",
-           "MAX_PIXELS_PER_SIDE", "MAX_PITCH_MM"]
+           "MAX_PIXELS_PER_SIDE", "MAX_PITCH_MM", "EXTERNAL_VARIABLE", "external_allowed"]
 
 #: what h5py (and the HDF5 library under it) raises for a damaged or unusual file: converted into the reader's
 #: error around h5py calls only
 H5PY_ERRORS = (OSError, RuntimeError, KeyError, TypeError, ValueError, UnicodeDecodeError, OverflowError,
                MemoryError, SystemError, AttributeError, IndexError)
 
+#: environment variable that allows data in other files for every reader, like ``allow_external=True`` (the
+#: global command-line flag ``trackfit --allow-external-storage COMMAND`` sets it, so worker processes inherit it)
+EXTERNAL_VARIABLE = "TRACKFIT_ALLOW_EXTERNAL_STORAGE"
+
 ALLOW_EXTERNAL_HINT = ("trackfit reads only data stored in the file itself, so that a file cannot make it read "
                        "another one unnoticed; pass allow_external=True (on the command line "
-                       "--allow-external-storage) if this file is meant to use data of other files")
+                       f"trackfit --allow-external-storage COMMAND ..., or {EXTERNAL_VARIABLE}=1 in the environment) "
+                       "if this file is meant to use data of other files")
+
+
+def external_allowed(allow_external: bool = False) -> bool:
+    """True when data in other files may be read: ``allow_external``, or :data:`EXTERNAL_VARIABLE` set to a true
+    value (``1``, ``yes``, ``true``) in the environment."""
+    import os
+
+    return bool(allow_external) or os.environ.get(EXTERNAL_VARIABLE, "").strip().lower() in ("1", "yes", "true")
 
 
 def plain_value(value):
@@ -189,14 +202,15 @@ class CheckedFile:
     error : type
         The reader's error class, called as ``error(path, message, dataset=name)``.
     allow_external : bool
-        Follow external links (refused by default, like every object with data in another file).
+        Follow external links (refused by default, like every object with data in another file; see
+        :func:`external_allowed`).
     """
 
     def __init__(self, f: h5py.File, path, error, *, allow_external: bool = False):
         self.file = f
         self.path = path
         self.error = error
-        self.allow_external = allow_external
+        self.allow_external = external_allowed(allow_external)
 
     def fail(self, message, where="/", **extra):
         raise self.error(self.path, message, dataset=where, **extra)
