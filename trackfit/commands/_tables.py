@@ -96,6 +96,28 @@ def missing_column_error(err: Exception, paths) -> CommandError | None:
     return CommandError(f"event table {table_origin(lacking[0])}{others} has no column '{column}'{which}: {advice}")
 
 
+def checked_estimate(path, table, estimator: str):
+    """``table`` (of the file ``path``) with the estimate ``estimator`` in the analysis columns, its values checked
+    (:func:`~trackfit.analysis.table_checks.check_analysis_values`); a missing column becomes the
+    :func:`missing_column_error` of ``path``."""
+    from ..analysis.estimates import with_estimate
+    from ..analysis.table_checks import TableValueError, check_analysis_values
+    from ..recon.estimators import ESTIMATE_COLUMNS
+
+    name = f"event table '{path}'"
+    try:
+        estimated = with_estimate(table, estimator, name=name)
+        check_analysis_values(estimated, name=name, columns=ESTIMATE_COLUMNS[estimator])
+    except TableValueError:
+        raise
+    except (KeyError, ValueError) as err:
+        explained = missing_column_error(err, [path])
+        if explained is None:
+            raise
+        raise explained from None
+    return estimated
+
+
 def one_line_cut_flow(flow) -> str:
     """``input 3000; default: ... removed 3000, kept 0; energy ... removed 0, kept 0``."""
     steps = [f"{cut} removed {removed}, kept {kept}" for cut, kept, removed in flow.rows]

@@ -15,7 +15,7 @@ from pathlib import Path
 from ..analysis.selection import NoEventsLeftError
 from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, parse_run_spec, print_warnings, selection_from_args
-from ._tables import missing_column_error, no_events_error
+from ._tables import checked_estimate, missing_column_error, no_events_error
 
 #: library parameters of build_calibration quoted in its errors ('min_counts') -> the flags that set them
 PARAMETER_FLAGS = {"min_counts": "--gain-min-counts", "energy_edges_kev": "--spurious-energy-edges",
@@ -127,10 +127,8 @@ class _Tables:
 
     def __call__(self, path, *, angles: bool = False):
         """The table of ``path``, its values checked (``angles``: with the estimate the angle analysis uses)."""
-        from ..analysis.estimates import estimator_of, with_estimate
-        from ..analysis.table_checks import TableValueError, check_analysis_values
+        from ..analysis.estimates import estimator_of
         from ..io.table import read_table
-        from ..recon.estimators import ESTIMATE_COLUMNS
 
         key = str(Path(path).resolve())
         if key not in self.tables:
@@ -140,16 +138,7 @@ class _Tables:
             self.paths[Path(path).name] = path
         table = self.tables[key]
         estimator = (self.estimator or estimator_of(table)) if angles else "two-stage"
-        try:
-            check_analysis_values(with_estimate(table, estimator, name=f"event table '{path}'"),
-                                  name=f"event table '{path}'", columns=ESTIMATE_COLUMNS[estimator])
-        except TableValueError:
-            raise
-        except (KeyError, ValueError) as err:
-            explained = missing_column_error(err, [path])
-            if explained is None:
-                raise
-            raise explained from None
+        checked_estimate(path, table, estimator)
         return table
 
 

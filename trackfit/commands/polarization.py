@@ -14,7 +14,7 @@ from pathlib import Path
 
 from ..cli import CommandError, flags_for_parameters
 from ._cuts import add_cut_options, has_cut_options, print_warnings, selection_from_args
-from ._tables import missing_column_error, no_events_error, table_columns
+from ._tables import checked_estimate, missing_column_error, no_events_error, table_columns
 
 #: library parameters of measure_polarization -> the flags that set them (errors name the flag)
 PARAMETER_FLAGS = {"n_bins": "--bins", "confidence_level": "--confidence", "energy_bands_kev": "--bands",
@@ -185,24 +185,10 @@ def _identity(path, table_identity) -> dict:
 
 def _check_values(paths, table, estimator) -> None:
     """Refuse tables whose usable events hold values the reconstruction never writes (one table at a time)."""
-    from ..analysis.estimates import with_estimate
-    from ..analysis.table_checks import TableValueError, check_analysis_values
     from ..io.table import read_table
     from ..recon.estimators import ESTIMATE_COLUMNS
 
-    names = ESTIMATE_COLUMNS[estimator]
-    needed = ["event_index", "status", "energy_kev", "pulse_height", *names.values()]
+    needed = ["event_index", "status", "energy_kev", "pulse_height", *ESTIMATE_COLUMNS[estimator].values()]
     for path in paths:
-        one = table if len(paths) == 1 else None
-        try:
-            if one is None:
-                one = read_table(path, columns=[c for c in needed if c in table_columns(path)])
-            one = with_estimate(one, estimator, name=f"event table '{path}'")
-            check_analysis_values(one, name=f"event table '{path}'", columns=names)
-        except TableValueError:
-            raise
-        except (KeyError, ValueError) as err:
-            explained = missing_column_error(err, [path])
-            if explained is None:
-                raise
-            raise explained from None
+        one = table if len(paths) == 1 else read_table(path, columns=[c for c in needed if c in table_columns(path)])
+        checked_estimate(path, one, estimator)
