@@ -1,0 +1,86 @@
+"""Fuzzing the event-table and calibration-file readers: structural mutations and byte damage of valid files.
+
+Accepted: a table whose columns all have the table's length (and a summary that prints), a calibration whose
+parts load and print; refused: the reader's own error naming the file; never anything else, never a hang.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from . import probes
+from .contract import SLICES, check_refusal, explore, fail, fresh_name, record
+from .mutations import apply_bytes, apply_structural, byte_mutations, describe, structural_mutations
+from .test_fuzz_raw import outside_storage
+
+
+def check_table(sandbox, path, what, target, *, check_outside=False):
+    outside = outside_storage(path) if check_outside else []
+    outcome = sandbox.run(probes.read_table_file, path)
+    if outcome.kind != "accepted":
+        check_refusal(outcome, target, path, what)
+    elif outside:
+        fail(target, "followed outside storage", f"{what}: accepted data stored outside the file: {outside}")
+    elif set(outcome.value["lengths"].values()) - {outcome.value["n_rows"]}:
+        fail(target, "wrong rows", f"{what}: columns of lengths {outcome.value['lengths']} in a table of "
+             f"{outcome.value['n_rows']} rows")
+    else:
+        record(target, "accepted")
+
+
+def check_calibration(sandbox, path, what, target, *, check_outside=False):
+    outside = outside_storage(path) if check_outside else []
+    outcome = sandbox.run(probes.read_calibration_file, path)
+    if outcome.kind != "accepted":
+        check_refusal(outcome, target, path, what)
+    elif outside:
+        fail(target, "followed outside storage", f"{what}: accepted data stored outside the file: {outside}")
+    else:
+        record(target, "accepted")
+
+
+def test_the_base_files_are_accepted(sandbox, base_table, base_calibration):
+    table = sandbox.run(probes.read_table_file, base_table)
+    assert table.kind == "accepted" and table.value["n_rows"] == 10, str(table)
+    calibration = sandbox.run(probes.read_calibration_file, base_calibration)
+    assert calibration.kind == "accepted" and len(calibration.value["parts"]) == 5, str(calibration)
+
+
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_table_structural_mutations(n_examples, sandbox, base_table, outside_file, fuzz_dir):
+    def check(mutations):
+        path = fresh_name(fuzz_dir, "table-structure")
+        done = apply_structural(base_table, path, mutations, outside_file)
+        check_table(sandbox, path, describe(done), "table file: structure", check_outside=True)
+
+    explore(structural_mutations(), check, n_examples)
+
+
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_table_byte_damage(n_examples, sandbox, base_table, fuzz_dir):
+    def check(mutations):
+        path = fresh_name(fuzz_dir, "table-bytes")
+        done = apply_bytes(base_table, path, mutations)
+        check_table(sandbox, path, describe(done), "table file: bytes")
+
+    explore(byte_mutations(), check, n_examples)
+
+
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_calibration_structural_mutations(n_examples, sandbox, base_calibration, outside_file, fuzz_dir):
+    def check(mutations):
+        path = fresh_name(fuzz_dir, "calibration-structure")
+        done = apply_structural(base_calibration, path, mutations, outside_file)
+        check_calibration(sandbox, path, describe(done), "calibration file: structure", check_outside=True)
+
+    explore(structural_mutations(), check, n_examples)
+
+
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_calibration_byte_damage(n_examples, sandbox, base_calibration, fuzz_dir):
+    def check(mutations):
+        path = fresh_name(fuzz_dir, "calibration-bytes")
+        done = apply_bytes(base_calibration, path, mutations)
+        check_calibration(sandbox, path, describe(done), "calibration file: bytes")
+
+    explore(byte_mutations(), check, n_examples)
