@@ -16,6 +16,7 @@ PRODUCTS = {
     "pixel-map-format.md": ("chip_map.h5", "hot 4, dead 4"),
     "bring-your-own-data.md": ("converted_frames.h5", "2000 events"),
     "planner.md": ("plan.json", "MDP99"),
+    "reliability.md": ("split_run.h5", "1 event read"),
 }
 
 

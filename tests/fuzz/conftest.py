@@ -34,19 +34,19 @@ def pytest_terminal_summary(terminalreporter):
                                     f"refused {counts['refused']:>5}" + (f", {rest}" if rest else ""))
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def sandbox():
     box = Sandbox(probes.warm_up)
     yield box
     box.close()
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def fuzz_dir(tmp_path_factory):
     return tmp_path_factory.mktemp("fuzz")
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def outside_file(fuzz_dir):
     """A text file outside every HDF5 file: what external links and external storage point at."""
     path = fuzz_dir / "outside.txt"
@@ -54,7 +54,7 @@ def outside_file(fuzz_dir):
     return path
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def base_raw(fuzz_dir):
     """A small valid simulator file: the first events of a sample run, with three truth columns and the run info,
     written by RawEventWriter in small chunks (so a file of a few tens of kB still has several chunks)."""
@@ -76,7 +76,7 @@ def base_raw(fuzz_dir):
     return path
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def base_table(sandbox, base_raw, fuzz_dir):
     """The event table of the base raw file, made in the child process (where the kernels are loaded)."""
     path = fuzz_dir / "base_table.h5"
@@ -108,7 +108,7 @@ def calibration_parts():
     )
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def base_calibration(fuzz_dir):
     from trackfit.analysis import Calibration
     from trackfit.analysis.calfile import make_provenance
