@@ -101,9 +101,9 @@ def check_refusal(outcome, target: str, path, what: str) -> None:
         record(target, "refused")
 
 
-def check_cli(outcome, target: str, what: str, *, files=()) -> dict:
-    """The command line: exit status 0 or 2, never a traceback; a refusal (status 2) is one line naming one of
-    ``files`` (the input files of the command), when given."""
+def check_cli(outcome, target: str, what: str, *, files=(), flags=()) -> dict:
+    """The command line: exit status 0 or 2, never a traceback; a refusal (status 2) names one of ``files`` (the
+    input files of the command) or of ``flags`` (the flags typed), when given."""
     if not check_no_failure(outcome, target, what):
         return None
     if outcome.kind == "raised":
@@ -115,9 +115,10 @@ def check_cli(outcome, target: str, what: str, *, files=()) -> dict:
         fail(target, "traceback", f"{what}\na traceback reached the user:\n{text[-3000:]}")
     elif result["status"] not in (0, 2):
         fail(target, f"exit status {result['status']}", f"{what}\n{text[-3000:]}")
-    elif result["status"] == 2 and files and not any(Path(f).name in result["err"] for f in files):
-        fail(target, "refusal without the file name", f"{what}\nthe error names none of "
-             f"{[Path(f).name for f in files]}: {result['err']}")
+    elif result["status"] == 2 and (files or flags) and not any(
+            name in result["err"] for name in [Path(f).name for f in files] + list(flags)):
+        fail(target, "refusal without the file or flag", f"{what}\nthe error names none of "
+             f"{[Path(f).name for f in files] + list(flags)}: {result['err']}")
     else:
         record(target, "refused" if result["status"] == 2 else "accepted")
     return result

@@ -102,8 +102,9 @@ def test_generated_flag_values(n_examples, sandbox, base_raw, base_table, fuzz_d
         else:
             argv = [command, base_table, *values]
         outcome = sandbox.run(probes.cli, argv)
-        # a refusal names the flag or the file; argparse's own refusals (status 2) name the flag
-        check_cli(outcome, f"CLI flags: {command}", f"trackfit {' '.join(map(str, argv))}")
+        # a refusal names a flag typed (argparse's own refusals do too) or the input file
+        check_cli(outcome, f"CLI flags: {command}", f"trackfit {' '.join(map(str, argv))}",
+                  files=[argv[1]], flags=[v for v in values if v.startswith("--")])
 
     explore(command_lines(), check, n_examples)
 
