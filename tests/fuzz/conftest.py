@@ -120,3 +120,24 @@ def base_calibration(fuzz_dir):
     with h5py.File(path, "r") as f:  # the file has the layout docs/calibration-format.md describes
         assert sorted(f) == sorted(parts)
     return path
+
+
+@pytest.fixture(scope="package")
+def base_pixel_map(fuzz_dir):
+    """A small valid pixel map (a 20 x 12 chip), as in the pixel-map file tests."""
+    from trackfit import HexGrid
+    from trackfit.io.pixelmap import PixelMap, SourceRun, write_pixel_map
+
+    grid = HexGrid(n_columns=20, n_rows=12)
+    rng = np.random.default_rng(1)
+    shape = grid.shape
+    pixel_map = PixelMap(grid=grid, pedestal_adc=rng.normal(400, 20, shape), pedestal_error_adc=np.full(shape, 0.1),
+                         noise_adc=rng.uniform(1.5, 2.5, shape), noise_error_adc=np.full(shape, 0.08),
+                         occupancy=rng.uniform(0, 1e-3, shape), n_samples=np.full(shape, 400),
+                         n_above=np.zeros(shape, int), code=np.zeros(shape, np.uint8),
+                         settings={"min_samples": 50, "hot_p_value": 1e-9}, statistics={"noise_median_adc": 2.0},
+                         sources=(SourceRun(name="ped.h5", fingerprint="crc32:roi=1", n_events=400,
+                                            trigger_mode="random", pedestal_subtracted=False),))
+    path = fuzz_dir / "base_pixel_map.h5"
+    write_pixel_map(path, pixel_map, created_utc="1970-01-01T00:00:00Z")
+    return path

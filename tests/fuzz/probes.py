@@ -69,6 +69,14 @@ def read_calibration_file(path) -> dict:
     return {"parts": calibration.parts(), "text": repr(calibration)}
 
 
+def read_pixel_map_file(path) -> dict:
+    """Read a pixel map and print it."""
+    from trackfit.io.pixelmap import read_pixel_map
+
+    pixel_map = read_pixel_map(path)
+    return {"shape": pixel_map.code.shape, "text": repr(pixel_map)}
+
+
 def build_batch(arrays: dict, grid: dict | None) -> dict:
     """``EventBatch(**arrays)`` on the given chip: the arrays it stored (or the error)."""
     from trackfit import EventBatch, HexGrid

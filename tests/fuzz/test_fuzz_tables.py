@@ -1,12 +1,15 @@
-"""Fuzzing the event-table and calibration-file readers: structural mutations and byte damage of valid files.
+"""Fuzzing the event-table, calibration-file and pixel-map readers: structural mutations and byte damage of valid
+files.
 
 Accepted: a table whose columns all have the table's length (and a summary that prints), a calibration whose
-parts load and print; refused: the reader's own error naming the file; never anything else, never a hang.
+parts load and print, a pixel map of the chip's shape that prints; refused: the reader's own error naming the file;
+never anything else, never a hang.
 """
 
 from __future__ import annotations
 
 import pytest
+from hypothesis import strategies as st
 
 from . import probes
 from .contract import SLICES, check_refusal, explore, fail, fresh_name, record
@@ -28,9 +31,9 @@ def check_table(sandbox, path, what, target, *, check_outside=False):
         record(target, "accepted")
 
 
-def check_calibration(sandbox, path, what, target, *, check_outside=False):
+def check_calibration(sandbox, path, what, target, *, check_outside=False, probe=probes.read_calibration_file):
     outside = outside_storage(path) if check_outside else []
-    outcome = sandbox.run(probes.read_calibration_file, path)
+    outcome = sandbox.run(probe, path)
     if outcome.kind != "accepted":
         check_refusal(outcome, target, path, what)
     elif outside:
@@ -84,3 +87,19 @@ def test_calibration_byte_damage(n_examples, sandbox, base_calibration, fuzz_dir
         check_calibration(sandbox, path, describe(done), "calibration file: bytes")
 
     explore(byte_mutations(), check, n_examples)
+
+
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_pixel_map_mutations(n_examples, sandbox, base_pixel_map, outside_file, fuzz_dir):
+    def check(example):
+        how, mutations = example
+        path = fresh_name(fuzz_dir, f"pixel-map-{how}")
+        if how == "structure":
+            done = apply_structural(base_pixel_map, path, mutations, outside_file)
+        else:
+            done = apply_bytes(base_pixel_map, path, mutations)
+        check_calibration(sandbox, path, describe(done), f"pixel map: {how}", check_outside=how == "structure",
+                          probe=probes.read_pixel_map_file)
+
+    explore(st.one_of(st.tuples(st.just("structure"), structural_mutations()),
+                      st.tuples(st.just("bytes"), byte_mutations())), check, n_examples)
