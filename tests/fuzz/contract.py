@@ -19,6 +19,7 @@ import os
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import HealthCheck, example, given, settings
 
@@ -144,6 +145,7 @@ def check_rows(value, target: str, what: str) -> None:
             assert len(column) == n, f"column {name} has {len(column)} entries for {n} events"
         assert (columns["event_index"] == events["index"]).all(), "rows out of order (event_index)"
         assert (columns["trigger_id"] == events["trigger_id"]).all(), "trigger_id not copied exactly"
+        assert np.array_equal(columns["time_s"], events["time_s"], equal_nan=True), "time_s not copied exactly"
         start = events["start"]
         per_event = [(events["signal"][start[i]:start[i + 1]], events["roi"][i], bool(events["bad"][i]))
                      for i in range(n)]

@@ -108,6 +108,7 @@ def check_first_pass(rows, events, *, grid, threshold_adc, bad_pixels=(), no_sig
         if bad:
             assert status & malformed_bit, f"event {i}: a malformed input event without the MALFORMED_INPUT bit"
             continue
+        assert not status & malformed_bit, f"event {i}: a well-formed event flagged MALFORMED_INPUT ({status})"
         expected = first_pass(signal, roi, threshold_adc=threshold_adc, bad_pixels=bad_pixels, **grid)
         assert int(rows["n_clusters"][i]) == expected.n_clusters, \
             f"event {i}: n_clusters {int(rows['n_clusters'][i])}, recomputed {expected.n_clusters}"
