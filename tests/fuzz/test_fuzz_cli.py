@@ -2,21 +2,24 @@
 values on valid files.
 
 ``trackfit.cli.main`` runs in the sandboxed child process (its output captured, as ``capsys`` would) so that a
-hang is bounded; a few inputs also run as real ``python -m trackfit`` processes. The contract: exit status 0 or 2
+hang is bounded; a few inputs also run as real ``python -m trackfit`` processes, and ``trackfit info`` on valid
+files runs in this process with ``capsys``. The contract: exit status 0 or 2
 (2 with one line naming the input file), never a traceback, never an escaping exception, never a hang.
 """
 
 from __future__ import annotations
 
 import os
+import signal
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 from hypothesis import strategies as st
 
 from . import probes
-from .contract import SLICES, check_cli, explore, fresh_name
+from .contract import SLICES, check_cli, explore, fresh_name, record
 from .mutations import apply_bytes, apply_structural, byte_mutations, describe, structural_mutations
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
@@ -141,3 +144,40 @@ def test_damaged_inputs_in_a_real_process(damage, base_raw, outside_file, fuzz_d
         assert done.returncode in (0, 2), f"exit status {done.returncode}: {text}"
         if done.returncode == 2:
             assert path.name in done.stderr and len(done.stderr.strip().splitlines()) == 1, done.stderr
+
+
+# ---------------------------------------------------------------------------------------------- in this process
+@pytest.mark.skipif(not hasattr(signal, "SIGALRM"), reason="the time limit uses SIGALRM")
+@pytest.mark.parametrize("n_examples", SLICES)
+def test_info_in_this_process(n_examples, base_table, base_calibration, capsys):
+    # trackfit.cli.main itself, with pytest's capsys, on valid files (nothing here can loop inside HDF5, so a
+    # SIGALRM time limit is enough): the summary prints, or a bad --max-events is refused naming the flag
+    from trackfit.cli import main
+
+    def timed_out(signum, frame):
+        raise TimeoutError("trackfit info did not finish within 60 s")
+
+    def check(example):
+        path, flags = example
+        argv = ["info", str(path), *flags]
+        previous = signal.signal(signal.SIGALRM, timed_out)
+        signal.alarm(60)
+        try:
+            status = main(argv)
+        except SystemExit as exit_:  # argparse refusing a value
+            status = exit_.code
+        finally:
+            signal.alarm(0)
+            signal.signal(signal.SIGALRM, previous)
+        out, err = capsys.readouterr()
+        assert "Traceback" not in out + err
+        assert status in (0, 2), f"trackfit {' '.join(argv)}: exit status {status}\n{err}"
+        if status == 2:
+            assert "--max-events" in err and len(err.strip().splitlines()) <= 3, err
+        else:
+            assert Path(path).name in out
+        record("CLI in this process: info", "refused" if status else "accepted")
+
+    flags = st.lists(st.one_of(st.just(["--json"]), st.sampled_from(NUMBERS).map(lambda v: ["--max-events", v])),
+                     max_size=2).map(lambda groups: [f for g in groups for f in g])
+    explore(st.tuples(st.sampled_from([base_table, base_calibration]), flags), check, n_examples)
