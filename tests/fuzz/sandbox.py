@@ -124,7 +124,7 @@ class Sandbox:
 
     def _start(self):
         parent, child = self._context.Pipe()
-        self._process = self._context.Process(target=_serve, args=(child,), daemon=True, name="trackfit-fuzz-child")
+        self._process = self._context.Process(target=_serve, args=(child,), daemon=False, name="trackfit-fuzz-child")
         self._process.start()
         child.close()
         self._connection = parent
