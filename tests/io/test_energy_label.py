@@ -24,7 +24,7 @@ def test_scale_from_run_attributes():
     assert counts_per_kev_from_run({}) is None
     assert counts_per_kev_from_run({"nominal_counts_per_kev": np.float64(2400.0)}) == 2400.0
     for bad in (-3.0, 0, "many", float("nan"), True):
-        with pytest.raises(ValueError, match="file 'run.h5', /run attribute 'nominal_counts_per_kev'"):
+        with pytest.raises(ValueError, match="file 'run.h5', dataset '/run': attribute 'nominal_counts_per_kev'"):
             counts_per_kev_from_run({"nominal_counts_per_kev": bad}, path="run.h5")
 
 

@@ -184,6 +184,6 @@ def test_energy_scale_comes_from_settings_raw_file_or_nowhere(tmp_path):
     bad = tmp_path / "bad.h5"
     with RawEventWriter(bad, batch.grid, run_info={"nominal_counts_per_kev": -1.0}) as writer:
         writer.append(batch)
-    with pytest.raises(ValueError, match="bad.h5', /run attribute 'nominal_counts_per_kev'"):
+    with pytest.raises(ValueError, match="bad.h5', dataset '/run': attribute 'nominal_counts_per_kev'"):
         reconstruct_file(bad, tmp_path / "u.h5", progress=False)
     assert not (tmp_path / "u.h5").exists()

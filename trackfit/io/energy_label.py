@@ -34,6 +34,8 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
+from .errors import FileFormatError
+
 __all__ = ["RUN_COUNTS_PER_KEV", "RUN_DESIGN", "SCALE_KEY", "SOURCE_KEY", "ENERGY_SCALE_SOURCES",
            "counts_per_kev_from_run", "energy_scale_source", "energy_is_calibrated", "energy_axis_label",
            "format_energy", "describe_energy_scale"]
@@ -61,20 +63,21 @@ def counts_per_kev_from_run(run_info: Mapping, *, path=None) -> float | None:
 
     Raises
     ------
-    ValueError
-        The attribute is present but not a positive finite number; the message names the file and the attribute.
+    FileFormatError
+        The attribute is present but not a positive finite number (a number stored as text included); the message
+        names the file, the group ``/run`` and the attribute (a ``ValueError``).
     """
     if RUN_COUNTS_PER_KEV not in run_info:
         return None
     value = run_info[RUN_COUNTS_PER_KEV]
-    where = f"file '{path}', " if path is not None else ""
     try:
         number = float(value)
     except (TypeError, ValueError):
         number = math.nan
     if isinstance(value, bool | str | bytes) or not math.isfinite(number) or number <= 0:
-        raise ValueError(f"{where}/run attribute '{RUN_COUNTS_PER_KEV}': expected a positive number of ADC "
-                         f"counts per keV (got {value!r})")
+        raise FileFormatError(path if path is not None else "(run information)",
+                              f"attribute '{RUN_COUNTS_PER_KEV}': expected a positive number of ADC counts per keV "
+                              f"(got {value!r})", dataset="/run")
     return number
 
 

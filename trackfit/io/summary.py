@@ -93,7 +93,7 @@ class RawSummary:
 
     def _energy_scale_text(self) -> str:
         try:
-            nominal = counts_per_kev_from_run(self.run_info)
+            nominal = counts_per_kev_from_run(self.run_info, path=self.path)
         except ValueError as err:
             return f"unusable: {err}"
         if nominal is None:
