@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 
 from . import probes
 from .contract import SLICES, check_refusal, explore, fail, fresh_name, record
-from .mutations import apply_bytes, apply_structural, byte_mutations, describe, structural_mutations
+from .mutations import RESHAPES, apply_bytes, apply_structural, byte_mutations, describe, structural_mutations
 from .test_fuzz_raw import outside_storage
 
 
@@ -76,7 +76,11 @@ def test_calibration_structural_mutations(n_examples, sandbox, base_calibration,
         done = apply_structural(base_calibration, path, mutations, outside_file)
         check_calibration(sandbox, path, describe(done), "calibration file: structure", check_outside=True)
 
-    explore(structural_mutations(), check, n_examples)
+    # parts that loaded and then failed in use: points of a modulation-factor curve of different lengths, NaN
+    # counts of a spurious-modulation map
+    known = [[("reshape", "/modulation_factor/point_error", RESHAPES.index("drop_first"))],
+             [("revalue", "/spurious_modulation/counts", 127)]]
+    explore(structural_mutations(), check, n_examples, known)
 
 
 @pytest.mark.parametrize("n_examples", SLICES)

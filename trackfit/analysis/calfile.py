@@ -393,11 +393,15 @@ def _write_modulation_factor(group, curve: ModulationFactorCurve):
 
 
 def _read_modulation_factor(part) -> ModulationFactorCurve:
+    names = ("point_energy_kev", "point_value", "point_error")
+    points = [part.array(name) for name in names]
+    if len({len(p) for p in points}) > 1:
+        part.fail(f"datasets {', '.join(names)} must have one entry per measured point each (got lengths "
+                  f"{[len(p) for p in points]})")
     return ModulationFactorCurve(coefficients=part.numbers("coefficients"),
                                  energy_range_kev=part.numbers("energy_range_kev"),
-                                 points_energy_kev=tuple(part.array("point_energy_kev")),
-                                 points_value=tuple(part.array("point_value")),
-                                 points_error=tuple(part.array("point_error")))
+                                 points_energy_kev=tuple(points[0]), points_value=tuple(points[1]),
+                                 points_error=tuple(points[2]))
 
 
 _SPURIOUS_DATASETS = ("energy_kev", "x_edges_mm", "y_edges_mm", "q", "u", "q_err", "u_err", "counts")
@@ -411,9 +415,13 @@ def _write_spurious(group, spurious: SpuriousMap):
 
 
 def _read_spurious(part) -> SpuriousMap:
-    return SpuriousMap(**{name: part.array(name, ndim=1 if name in ("energy_kev", "x_edges_mm", "y_edges_mm") else 3)
-                          for name in _SPURIOUS_DATASETS},
-                       position=_position(part.text("position")))
+    arrays = {name: part.array(name, ndim=1 if name in ("energy_kev", "x_edges_mm", "y_edges_mm") else 3)
+              for name in _SPURIOUS_DATASETS}
+    counts = arrays["counts"]
+    bad = ~(np.isfinite(counts) & (counts >= 0))
+    if bad.any():
+        part.fail(f"dataset 'counts' must hold event counts, finite and >= 0 (got {float(counts[bad][0])!r})")
+    return SpuriousMap(**arrays, position=_position(part.text("position")))
 
 
 _RESPONSE_ATTRIBUTES = ("coefficients", "feature_low", "feature_high", "feature_mean", "feature_scale")
