@@ -91,8 +91,14 @@ def describe_exception(err: BaseException) -> Outcome:
                    extra={"event": getattr(err, "event", None), "dataset": getattr(err, "dataset", None)})
 
 
+#: environment variables that change what trackfit accepts or prints; the child tests the defaults
+NEUTRALISED = ("TRACKFIT_ALLOW_EXTERNAL_STORAGE", "TRACKFIT_DEBUG")
+
+
 def _serve(connection):
     """Child process: answer ``(function, args, kwargs)`` requests until the parent closes the pipe."""
+    for name in NEUTRALISED:
+        os.environ.pop(name, None)
     while True:
         try:
             request = connection.recv()

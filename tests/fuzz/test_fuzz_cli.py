@@ -21,6 +21,7 @@ from hypothesis import strategies as st
 from . import probes
 from .contract import SLICES, check_cli, explore, fresh_name, record
 from .mutations import apply_bytes, apply_structural, byte_mutations, describe, structural_mutations
+from .sandbox import NEUTRALISED
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
@@ -131,7 +132,8 @@ def test_damaged_inputs_in_a_real_process(damage, base_raw, outside_file, fuzz_d
         if not hasattr(os, "mkfifo"):
             pytest.skip("named pipes need a POSIX system")
         os.mkfifo(path)
-    env = dict(os.environ, PYTHONPATH=ROOT + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    env = {k: v for k, v in os.environ.items() if k not in NEUTRALISED}
+    env["PYTHONPATH"] = ROOT + os.pathsep + os.environ.get("PYTHONPATH", "")
     for argv in (["info", str(path)], ["reconstruct", str(path), "-o", str(fresh_name(fuzz_dir, "process-table")),
                                        "--no-progress"]):
         try:
