@@ -251,7 +251,11 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
         fit_range = None
         if line_kev is not None:  # find the line (pulse height per keV from the table's nominal scale)
             nominal = nominal_counts_per_kev(ph, np.concatenate([np.asarray(t["energy_kev"]) for t in chosen]))
-            located = fit_line_near(ph, scan_gain([ph], [line_kev], guess=nominal) * line_kev)
+            try:
+                located = fit_line_near(ph, scan_gain([ph], [line_kev], guess=nominal) * line_kev)
+            except ValueError as err:
+                raise ValueError(f"flat-field run(s) {', '.join(repr(r.label) for r in flat_field)}, line at "
+                                 f"{line_kev:g} keV: {err}") from None
             fit_range = (float(located.edges[0]), float(located.edges[-1]))  # the line, clear of its neighbours
         if gain_drift:
             if len(flat_field) != 1:
@@ -328,7 +332,10 @@ def build_calibration(*, flat_field: Sequence[CalibrationRun] = (), lines: Seque
                             span=1.3 if line_points else 2.5)
         for run in lines:
             others = [per_kev * o.energy_kev for o in lines if o.table is run.table and o is not run]
-            fit = fit_line_near(spectra[id(run.table)], per_kev * run.energy_kev, neighbours=others)
+            try:
+                fit = fit_line_near(spectra[id(run.table)], per_kev * run.energy_kev, neighbours=others)
+            except ValueError as err:  # say which run: several line runs may be calibrated at once
+                raise ValueError(f"line run '{run.label}', line at {run.energy_kev:g} keV: {err}") from None
             warn_if_poor(fit.quality, f"the line at {run.energy_kev:g} keV of '{run.label}'")
             report.line_fits.append((run.label, run.energy_kev, fit))
             line_points.append((run.label, run.energy_kev, fit))

@@ -351,7 +351,7 @@ class ReconConfig:
         if unknown:
             raise ValueError(f"{source}: unknown key(s) {unknown}; valid keys are {cls.field_names()}")
         values = dict(values)
-        if "bad_pixels" in values:
+        if isinstance(values.get("bad_pixels"), list):  # other values are judged (and refused) by the constructor
             values["bad_pixels"] = [tuple(p) if isinstance(p, list) else p for p in values["bad_pixels"]]
         try:
             return cls(**values)
