@@ -26,7 +26,7 @@ from hypothesis import HealthCheck, example, given, settings
 from .conftest import TALLY
 
 #: examples per property: the fast slice of the default run and the large slice marked slow
-SLICES = [pytest.param(12, id="fast"), pytest.param(150, id="large", marks=pytest.mark.slow)]
+SLICES = [pytest.param(25, id="fast"), pytest.param(150, id="large", marks=pytest.mark.slow)]
 _names = itertools.count()
 
 

@@ -48,7 +48,7 @@ def run_commands(sandbox, kind, path, folder, what):
 
 
 @pytest.mark.parametrize("kind", ["raw", "table", "calibration"])
-@pytest.mark.parametrize("n_examples", [pytest.param(4, id="fast"), pytest.param(40, id="large",
+@pytest.mark.parametrize("n_examples", [pytest.param(6, id="fast"), pytest.param(40, id="large",
                                                                                   marks=pytest.mark.slow)])
 def test_commands_on_mutated_files(kind, n_examples, sandbox, base_raw, base_table, base_calibration, outside_file,
                                    fuzz_dir):
