@@ -56,7 +56,8 @@ def repository_files() -> tuple[Path, ...]:
     except (OSError, subprocess.SubprocessError):
         paths = [p for p in ROOT.rglob("*") if p.is_file()
                  and not any(part in SKIP_DIRS or part.endswith(".egg-info") for part in p.relative_to(ROOT).parts)]
-    return tuple(sorted(p for p in paths if p.is_file() and p.suffix.lower() not in BINARY_SUFFIXES))
+    return tuple(sorted(p for p in paths if p.is_file() and p.suffix.lower() not in BINARY_SUFFIXES
+                        and not any(part in SKIP_DIRS for part in p.relative_to(ROOT).parts)))
 
 
 @cache
