@@ -76,6 +76,31 @@ def _principal_axis(mxx, myy, mxy):
 
 
 @jit
+def _largest_area(lo, hi, start, n_signal):
+    """The largest pixel count of events ``lo <= i < hi`` that lie in a signal array of ``n_signal`` values (at
+    least 1): the size of an event's work arrays (malformed offsets never size an allocation)."""
+    largest = 1
+    for i in range(lo, hi):
+        area = start[i + 1] - start[i]
+        if area > largest and start[i] >= 0 and start[i + 1] <= n_signal:
+            largest = area
+    return largest
+
+
+@jit
+def _centroid(px, py, w, n):
+    """(sum of w, weighted mean x, weighted mean y) of the first n points."""
+    wsum = 0.0
+    sx = 0.0
+    sy = 0.0
+    for j in range(n):
+        wsum += w[j]
+        sx += w[j] * px[j]
+        sy += w[j] * py[j]
+    return wsum, sx / wsum, sy / wsum
+
+
+@jit
 def _moments_about(px, py, w, n, cx, cy):
     """Weighted sums of dx^2, dy^2 and dx dy of the first n points about (cx, cy) (not normalised)."""
     sxx = 0.0
@@ -165,11 +190,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
         estimators of :mod:`trackfit.recon.estimators` start from it); malformed events are left untouched.
     out_f : float64 (N, len(FLOAT_COLUMNS)); out_i : int64 (N, len(INT_COLUMNS))
     """
-    max_area = 1
-    for i in range(lo, hi):  # the largest area of the events that lie in the signal array (others are malformed)
-        area = start[i + 1] - start[i]
-        if area > max_area and start[i] >= 0 and start[i + 1] <= signal.size:
-            max_area = area
+    max_area = _largest_area(lo, hi, start, signal.size)
     label = np.full(max_area, -1, np.int32)  # -1: not hit; 0: hit, unlabelled; >0: cluster id
     hits = np.empty(max_area, np.int32)
     stack = np.empty(max_area, np.int32)
@@ -334,15 +355,7 @@ def reconstruct_range(lo, hi, roi, start, signal, bad, mask, thresholds, mask_co
             status |= _FEW
 
         # ---- first pass: centroid and moments
-        qsum = 0.0
-        sx = 0.0
-        sy = 0.0
-        for j in range(n):
-            qsum += pq[j]
-            sx += pq[j] * px[j]
-            sy += pq[j] * py[j]
-        bx = sx / qsum
-        by = sy / qsum
+        qsum, bx, by = _centroid(px, py, pq, n)
         out_f[i, _F_PH] = qsum
         out_f[i, _F_E] = qsum / counts_per_kev
         out_f[i, _F_BX] = bx + xr

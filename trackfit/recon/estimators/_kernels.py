@@ -15,7 +15,14 @@ import math
 import numpy as np
 
 from ..._jit import jit
-from .._kernels import DEGENERACY_TOLERANCE, _moments_about, _principal_axis, _wrap_pi
+from .._kernels import (
+    DEGENERACY_TOLERANCE,
+    _centroid,
+    _largest_area,
+    _moments_about,
+    _principal_axis,
+    _wrap_pi,
+)
 from ..status import Status
 
 __all__ = ["adaptive_range", "interpolate_rule", "ADAPTIVE_FLOAT_COLUMNS", "ADAPTIVE_INT_COLUMNS"]
@@ -73,11 +80,7 @@ def adaptive_range(lo, hi, roi, start, signal, main_mask, status_in, pitch_mm, r
         Weight of the charge-density asymmetry in the head score.
     out_f : float64 (N, 4); out_i : int64 (N, 1)
     """
-    max_area = 1
-    for i in range(lo, hi):
-        area = start[i + 1] - start[i]
-        if area > max_area:
-            max_area = area
+    max_area = _largest_area(lo, hi, start, signal.size)
     px = np.empty(max_area, np.float64)
     py = np.empty(max_area, np.float64)
     pq = np.empty(max_area, np.float64)
@@ -110,15 +113,7 @@ def adaptive_range(lo, hi, roi, start, signal, main_mask, status_in, pitch_mm, r
         xr = pitch_mm * c0 - x0_mm
         yr = row_pitch_mm * r0 - y0_mm
         # ---- first pass: centroid, moments, axis
-        qsum = 0.0
-        sx = 0.0
-        sy = 0.0
-        for j in range(n):
-            qsum += pq[j]
-            sx += pq[j] * px[j]
-            sy += pq[j] * py[j]
-        bx = sx / qsum
-        by = sy / qsum
+        qsum, bx, by = _centroid(px, py, pq, n)
         mxx, myy, mxy = _moments_about(px, py, pq, n, bx, by)
         mxx /= qsum
         myy /= qsum
