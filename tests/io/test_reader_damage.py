@@ -10,6 +10,7 @@ the external-storage cases compare what an allowed read returns with the bytes n
 import json
 import os
 import pickle
+import re
 import shutil
 import subprocess
 import sys
@@ -254,6 +255,36 @@ def test_a_damaged_global_heap_is_refused_before_the_hdf5_library_loops_on_it(va
     result = subprocess.run([sys.executable, "-m", "trackfit", "info", str(bad)], capture_output=True, text=True,
                             timeout=120)
     assert result.returncode == 2 and "Traceback" not in result.stderr and str(bad) in result.stderr
+
+
+def test_the_heap_check_finds_the_same_damage_without_memory_maps(valid, tmp_path, monkeypatch):
+    """The check maps the file; where a file system refuses memory maps it reads the two ends instead."""
+    import mmap
+
+    import trackfit.io.heapcheck as heapcheck
+
+    bad = _damage_heap_object(valid["raw"], tmp_path / "heap.h5")
+    padded = tmp_path / "padded.h5"  # the damaged collection in the first MiB of a file of more than two MiB
+    padded.write_bytes(bad.read_bytes() + bytes(3 * heapcheck.SCAN_BYTES))
+    tail = tmp_path / "tail.h5"  # and in the last MiB (the start of the damaged file after three MiB of zeros)
+    tail.write_bytes(bytes(3 * heapcheck.SCAN_BYTES) + bad.read_bytes()[:heapcheck.SCAN_BYTES // 2])
+    mapped = {path: damaged_global_heaps(path) for path in (bad, padded, tail, valid["raw"])}
+
+    def refuse(*args, **kwargs):
+        raise OSError("memory maps are not supported here")
+
+    monkeypatch.setattr(mmap, "mmap", refuse)
+    read = {path: damaged_global_heaps(path) for path in mapped}
+    assert read == mapped
+    assert mapped[bad] and mapped[padded] == mapped[bad] and mapped[valid["raw"]] == []
+    shift = 3 * heapcheck.SCAN_BYTES  # byte positions are the file's, in the offset and in the text
+    assert [offset for offset, _ in mapped[tail]] == [offset + shift for offset, _ in mapped[bad]]
+    position = int(re.search(r"at byte (\d+) ", mapped[bad][0][1]).group(1))  # inside the collection
+    assert mapped[bad][0][0] < position < mapped[bad][0][0] + 4096
+    assert mapped[tail][0][1] == mapped[bad][0][1].replace(f"byte {position} ", f"byte {position + shift} ")
+    empty = tmp_path / "empty.h5"
+    empty.write_bytes(b"")
+    assert damaged_global_heaps(empty) == []
 
 
 # ------------------------------------------------------------------------------------------------ non-regular files

@@ -16,6 +16,7 @@ reads at most twice that, whatever the file size. A damaged collection elsewhere
 
 from __future__ import annotations
 
+import mmap
 import os
 
 __all__ = ["SCAN_BYTES", "damaged_global_heaps"]
@@ -30,9 +31,10 @@ _MAX_COLLECTION = 1 << 32
 _OBJECT_HEADER = 16
 
 
-def _problem(block: bytes, offset: int) -> str | None:
+def _problem(block: bytes, offset: int, base: int = 0) -> str | None:
     """What is wrong with the collection whose signature is at ``block[offset]``; None when it is sound or when
-    the bytes there do not look like a collection header at all (a chance match in data)."""
+    the bytes there do not look like a collection header at all (a chance match in data). ``base``: the file
+    offset of ``block``, for the byte positions the text gives."""
     if len(block) < offset + 16 or block[offset + 4] != 1:
         return None
     size = int.from_bytes(block[offset + 8:offset + 16], "little")
@@ -48,7 +50,7 @@ def _problem(block: bytes, offset: int) -> str | None:
         object_size = int.from_bytes(block[position + 8:position + 16], "little")
         if index == 0:  # free space, header included: exactly the rest of the collection
             if position + object_size != end:
-                return (f"its free space at byte {position} declares {object_size} bytes where {end - position} "
+                return (f"its free space at byte {base + position} declares {object_size} bytes where {end - position} "
                         "are left: an object before it has a wrong size")
             return None
         if index in seen:
@@ -65,21 +67,46 @@ def _problem(block: bytes, offset: int) -> str | None:
 def damaged_global_heaps(path) -> list[tuple[int, str]]:
     """Damaged global heap collections near the start and the end of a file: list of (byte offset, problem).
 
-    Reads at most ``2 * SCAN_BYTES`` bytes. OSError passes to the caller.
+    Looks at most at ``2 * SCAN_BYTES`` bytes, through a read-only memory map (no copy: this runs every time a
+    file is opened). OSError passes to the caller.
     """
     size = os.path.getsize(path)
+    ranges = [(0, min(size, SCAN_BYTES))]
+    if size > SCAN_BYTES:
+        ranges.append((max(SCAN_BYTES, size - SCAN_BYTES), size))
     found = []
     with open(path, "rb") as f:
-        ranges = [(0, min(size, SCAN_BYTES))]
-        if size > SCAN_BYTES:
-            ranges.append((max(SCAN_BYTES, size - SCAN_BYTES), size))
+        if size == 0:
+            return found
+        try:
+            mapped = mmap.mmap(f.fileno(), 0, access=mmap.ACCESS_READ)
+        except (OSError, ValueError):  # a file system without memory maps: read the two ends
+            mapped = None
         for start, stop in ranges:
-            f.seek(start)
-            block = f.read(stop - start)
-            offset = block.find(_SIGNATURE)
-            while offset >= 0:
-                problem = _problem(block, offset)
-                if problem is not None:
-                    found.append((start + offset, problem))
-                offset = block.find(_SIGNATURE, offset + 1)
+            if mapped is None:
+                f.seek(start)
+                _scan(f.read(stop - start), start, found)
+            else:
+                with memoryview(mapped) as whole, whole[start:stop] as block:
+                    _scan(block, start, found, lambda offset, s=start, e=stop: mapped.find(_SIGNATURE, s + offset, e))
+        if mapped is not None:
+            mapped.close()
     return found
+
+
+def _scan(block, start: int, found: list, find=None) -> None:
+    """Append ``(start + offset, problem)`` for every damaged collection whose signature is in ``block`` (bytes, or
+    a memoryview with ``find(offset)`` giving the next signature at or after ``offset`` relative to the file)."""
+    if find is None:
+        def find(offset):
+            return block.find(_SIGNATURE, offset)
+        base = 0
+    else:
+        base = start
+    at = find(0)
+    while at >= 0:
+        offset = at - base
+        problem = _problem(block, offset, start)
+        if problem is not None:
+            found.append((start + offset, problem))
+        at = find(offset + 1)

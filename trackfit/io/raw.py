@@ -538,11 +538,13 @@ def _prefetched(read, items, depth: int = 2):
             yield value
     finally:
         stop.set()
+        # unblock a worker waiting to put a batch (the consumer stopped early), without waiting on an empty queue
+        # for a worker that has already put its last item and is ending
         while thread.is_alive():
             try:
-                results.get(timeout=0.05)
+                results.get_nowait()
             except queue.Empty:
-                pass
+                thread.join(0.001)
         thread.join()
 
 

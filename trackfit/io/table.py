@@ -335,6 +335,23 @@ class EventTable(Mapping):
 
 
 # ---------------------------------------------------------------------- writing
+def _new_text_attribute(obj, name: str, text: str) -> None:
+    """Add the text attribute ``name`` (absent so far) to ``obj``, stored as ``obj.attrs[name] = text`` stores it
+    (a scalar of variable-length UTF-8 text).
+
+    Through h5py's low-level API: its ``attrs`` writes every new attribute under a temporary name and renames it,
+    several times the cost, and a table gets dozens of these (the unit and description of every column, the
+    provenance), which counts for files of few events.
+    """
+    space = h5py.h5s.create(h5py.h5s.SCALAR)
+    attribute = h5py.h5a.create(obj.id, name.encode(), _TEXT_TYPE, space)
+    attribute.write(np.array(text, dtype=_TEXT_DTYPE))
+
+
+_TEXT_DTYPE = h5py.string_dtype()
+_TEXT_TYPE = h5py.h5t.py_create(_TEXT_DTYPE, logical=True)
+
+
 def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
     for key, value in provenance.items():
         if key in group.attrs:
@@ -347,6 +364,8 @@ def _write_provenance(group: h5py.Group, provenance: Mapping) -> None:
             value = str(value)
         if isinstance(value, str) and len(value.encode()) > _LONG_TEXT:
             group.create_dataset(key, data=value, dtype=h5py.string_dtype())
+        elif isinstance(value, str):
+            _new_text_attribute(group, key, value)
         elif isinstance(value, str | bytes | bool | int | float | np.generic):
             group.attrs[key] = value
         elif isinstance(value, list | tuple | np.ndarray):
@@ -461,11 +480,10 @@ class TableWriter(PartialFileWriter):
             if name in self._descriptions:
                 unit, text = self._descriptions[name]
             if text is not None:
-                ds.attrs["unit"] = unit or ""
-                ds.attrs["description"] = text
+                _new_text_attribute(ds, "unit", unit or "")
+                _new_text_attribute(ds, "description", text)
         self._columns = list(columns)
         self._dtypes = {name: arr.dtype for name, arr in columns.items()}
-        self._write_column_order()
 
     def _write_column_order(self) -> None:
         self._file["events"].attrs["column_order"] = np.array(self.columns, dtype=h5py.string_dtype())
@@ -534,16 +552,25 @@ class TableWriter(PartialFileWriter):
         # both uncompressed and no chunk longer than the data: HDF5 copies the stored bytes
         if not self._filters and not source._filters and (source.chunks or (0,))[0] <= source.shape[0]:
             events.copy(source, name)
-        else:  # through memory, with this table's filter and chunks
-            target = events.create_dataset(name, shape=source.shape, maxshape=(None,), dtype=source.dtype,
-                                           chunks=(max(1, min(self._chunk_rows, source.shape[0])),), **self._filters)
+        else:  # through memory, with this table's layout: contiguous, or its filter and chunks
+            n = source.shape[0]
+            layout = {} if self._contiguous else {"maxshape": (None,), "chunks": (max(1, min(self._chunk_rows, n)),),
+                                                  **self._filters}
+            target = events.create_dataset(name, shape=source.shape, dtype=source.dtype, **layout)
             step = 1 << 20
-            for a in range(0, source.shape[0], step):
-                target[a:a + step] = source[a:a + step]
+            buffer = np.empty(min(n, step), source.dtype)
+            for a in range(0, n, step):  # the low-level reads and writes: small columns cost little
+                part = buffer[:min(step, n - a)]
+                selection = source.id.get_space()
+                selection.select_hyperslab((a,), (len(part),))
+                memory = h5py.h5s.create_simple((len(part),))
+                source.id.read(memory, selection, part)
+                selection = target.id.get_space()
+                selection.select_hyperslab((a,), (len(part),))
+                target.id.write(memory, selection, part)
         if description is not None:
             events[name].attrs["unit"], events[name].attrs["description"] = description
         self._copied.append(name)
-        self._write_column_order()
         self.check_writes()
 
     def set_provenance(self, **values) -> None:
@@ -564,6 +591,7 @@ class TableWriter(PartialFileWriter):
             if events[name].shape[0] != self._n:
                 raise ValueError(f"'{self.path}': copied column '{name}' has {events[name].shape[0]} rows, the table "
                                  f"{self._n}")
+        self._write_column_order()  # once, with the copied columns (the table is complete only when closed)
         self._file["events"].attrs["n_rows"] = self._n
 
 
@@ -594,9 +622,7 @@ def write_table(path, table, *, provenance=None, compression: str = DEFAULT_COMP
         chunk_rows = max(1, min(int(chunk_rows), max(n_rows, 1)))
     with TableWriter(path, provenance=merged, compression=compression, overwrite=overwrite, expected_rows=n_rows,
                      chunk_rows=chunk_rows) as writer:
-        writer.append(table)
-        if writer._columns is None:  # empty mapping: still a valid (column-less) table
-            writer._file["events"].attrs["column_order"] = np.array([], dtype=h5py.string_dtype())
+        writer.append(table)  # an empty mapping gives a valid table of no columns (close writes its empty order)
     return Path(path)
 
 
