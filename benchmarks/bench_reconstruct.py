@@ -12,13 +12,15 @@ times the other estimates against it):
    implementation.
 2. whole files, for the toy file and simulator files (``trackfit simulate --preset hedme-1atm-1cm --energy-kev E``,
    uncompressed, about 300 ROI pixels per event):
-   a. the breakdown of the work around the kernel, each stage alone on one core: read (h5py + validation of the
-      events), checksum (the CRC-32 content fingerprint), kernel, columns (assembly of the result columns), write
+   a. the breakdown of the work around the kernel, each stage alone on one core: read (h5py, the signal viewed
+      through memory maps of the file, + validation of the events; the pages are touched by the next stages),
+      checksum (the CRC-32 content fingerprint), kernel, columns (assembly of the result columns), write
       (the table's columns, with its creation and closing) and truth copy (the simulation truth, copied by HDF5),
       in ms per 1e5 events and as a share of the kernel;
    b. ``reconstruct_file`` against the kernel alone on the same events held in memory, with 1 and all kernel
       threads, runs interleaved, best of ``--repeats``. Targets: >= 0.9x the kernel's events/s with 1 thread,
-      >= 0.8x with all threads.
+      >= 0.8x with all threads. Then the fixed cost of a file: ``reconstruct_file`` on a file of its first 100
+      events (opening and checking the input, creating and closing the table).
    With ``--parts``: the same file split into event ranges over a spawn process pool (``reconstruct_in_parts``),
    which pays about 1.5 s to start each worker process.
 3. memory: peak resident memory of ``reconstruct_file`` in a fresh process for files of 1e5 and 1e6 events (the
@@ -115,11 +117,9 @@ def breakdown(raw, config, batch_size, repeats=3):
         n = len(reader)
         bounds = batch_bounds(0, n, batch_size)
         prepared = _Prepared(config, reader.grid, config.energy_scale(reader.run_info)[0])
-        starts = reader._start[[a for a, _ in bounds] + [n]] if n else np.zeros(1, np.int64)
-        buffer = np.empty(int(np.diff(starts).max(initial=1)), np.int16)  # reused, as reconstruct_file does
 
-        def read():
-            return [reader.read_batch(a, b, with_truth=False, buffer=lambda k: buffer) for a, b in bounds]
+        def read():  # the signal viewed through memory maps, as reconstruct_file reads it
+            return [reader.read_batch(a, b, with_truth=False, mapped=True) for a, b in bounds]
 
         out["read"], batches = best(read)
         batches = [reader.read_batch(a, b, with_truth=False) for a, b in bounds]  # own memory, kept
@@ -152,10 +152,21 @@ def breakdown(raw, config, batch_size, repeats=3):
     return n, out, len(copies)
 
 
+def small_file(raw, n=100):
+    """A raw file of the first ``n`` events of ``raw`` (with their truth and run attributes), for the fixed cost."""
+    path = raw.parent / f"{raw.stem}_first{n}.h5"
+    with open_raw(raw) as reader, RawEventWriter(path, reader.grid, run_info=reader.run_info,
+                                                 overwrite=True) as writer:
+        writer.append(reader.read_batch(0, min(n, len(reader))))
+    return path
+
+
 def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
-    """Best seconds of the kernel alone and of reconstruct_file (1 and all threads), interleaved."""
+    """Best seconds of the kernel alone and of reconstruct_file (1 and all threads, and on a file of the first 100
+    events: the fixed cost of a file), interleaved."""
     from concurrent.futures import ThreadPoolExecutor
 
+    small = small_file(raw)
     with open_raw(raw) as reader:
         batch = reader.read_all(with_truth=False)
         prepared = _Prepared(config, reader.grid, config.energy_scale(reader.run_info)[0])
@@ -181,6 +192,8 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
                                                   overwrite=True, threads=1))
         timed("file all", lambda: reconstruct_file(raw, out, config, batch_size=batch_size, progress=False,
                                                     overwrite=True, threads=threads_all))
+        timed("100 events", lambda: reconstruct_file(small, out, config, batch_size=batch_size, progress=False,
+                                                      overwrite=True, threads=1))
     if parts:
         from trackfit.recon.parts import reconstruct_in_parts
 
@@ -189,6 +202,7 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
                                                         batch_size=batch_size, overwrite=True))
     pool.shutdown()
     out.unlink(missing_ok=True)
+    small.unlink(missing_ok=True)
     return len(batch), best, cpu
 
 
@@ -213,10 +227,14 @@ def report_file(label, raw, config, args, threads_all):
           f"{'met' if one >= 0.9 else 'NOT met'}, {'met' if every >= 0.8 else 'NOT met'})")
     print(f"      CPU seconds: file {cpu['file 1']:.3f} / {cpu['file all']:.3f} against kernel {cpu['kernel 1']:.3f} / "
           f"{cpu['kernel all']:.3f}; load average now {os.getloadavg()[0]:.2f}")
+    print(f"      fixed cost of a file (reconstruct_file on its first 100 events, 1 thread): "
+          f"{best['100 events'] * 1e3:.1f} ms, {best['100 events'] / best['kernel 1']:.1%} of the kernel's time for "
+          f"the {n} events")
     if "parts" in best:
         print(f"      reconstruct_in_parts, {threads_all} processes: {n / best['parts']:,.0f} events/s "
               f"({best['kernel all'] / best['parts']:.2f}x the kernel; each process starts in about 1.5 s)")
-    return {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every}
+    return {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every,
+            "fixed_s": best["100 events"]}
 
 
 # VmHWM (peak resident set of this process image), not getrusage's ru_maxrss: Linux carries ru_maxrss over from

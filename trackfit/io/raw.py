@@ -20,6 +20,7 @@ from ._partial import PartialFileWriter, append_rows
 from .compression import DEFAULT_COMPRESSION, dataset_filter_options
 from .errors import FileFormatError
 from .kinds import open_kind
+from .mapped import MappedRanges
 from .structure import CheckedFile, flag_attribute, grid_from_attributes, text_attribute
 
 __all__ = ["RawEventWriter", "RawEventReader", "RawFormatError", "open_raw", "FORMAT_NAME", "FORMAT_VERSION",
@@ -247,6 +248,7 @@ class RawEventReader:
         self.bad_events: list[tuple[int, str]] = []
         self._reported: set[int] = set()
         self._file = None
+        self._mapped: MappedRanges | None = None  # made at the first mapped read
         self._file, attrs = open_kind(self.path, FORMAT_NAME, what="raw event file", error=RawFormatError,
                                       versions=(FORMAT_VERSION,), allow_external=allow_external)
         self._checked = CheckedFile(self._file, self.path, RawFormatError, allow_external=allow_external)
@@ -333,9 +335,20 @@ class RawEventReader:
         return False
 
     def close(self):
+        if getattr(self, "_mapped", None) is not None:
+            self._mapped.close()
+            self._mapped = None
         if getattr(self, "_file", None) is not None:
             self._file.close()
             self._file = None
+
+    def _mapped_range(self, start: int, stop: int) -> np.ndarray | None:
+        """Signal values ``start:stop`` viewed through a memory map, or None when they must be read (see
+        :class:`~trackfit.io.mapped.MappedRanges`)."""
+        if getattr(self, "_mapped", None) is None:
+            with self._checked.guard(self._signal.name):
+                self._mapped = MappedRanges(self.path, self._signal, np.int16)
+        return self._mapped.view(start, stop)
 
     @property
     def n_pixels_total(self) -> int:
@@ -362,13 +375,17 @@ class RawEventReader:
             out[: min(b, m) - a] = self._checked.read(ds, np.s_[a:min(b, m)])
         return out
 
-    def read_batch(self, a: int, b: int, *, with_truth: bool = True, buffer=None) -> EventBatch:
+    def read_batch(self, a: int, b: int, *, with_truth: bool = True, buffer=None, mapped: bool = False) -> EventBatch:
         """Events ``a`` to ``b - 1`` as one :class:`EventBatch` (validated as described in the class docs).
 
         ``buffer``: a callable ``buffer(n_pixels)`` returning an int16 array of at least ``n_pixels`` values to read
         the signal into (streaming callers reuse a few buffers instead of new memory for every batch); the batch's
         signal is then a view of it, valid until the caller reuses the buffer. Batches with malformed events are
         read into new memory.
+
+        ``mapped``: when the signal is stored uncompressed, the batch's signal views the file's bytes through a
+        private memory map instead of a copy (:mod:`trackfit.io.mapped`; ``buffer`` is then not called). The view
+        is writable, its writes never reach the file, and it stays valid as long as the batch lives.
         """
         if not 0 <= a <= b <= self._n:
             raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
@@ -404,8 +421,11 @@ class RawEventReader:
         if not bad.any():
             s0 = int(start[0])
             n_pix = int(start[-1]) - s0
-            memory = buffer(n_pix) if buffer is not None and n_pix > 0 else None
-            if memory is not None:
+            signal = self._mapped_range(s0, s0 + n_pix) if mapped and n_pix > 0 else None
+            memory = buffer(n_pix) if buffer is not None and n_pix > 0 and signal is None else None
+            if signal is not None:
+                pass
+            elif memory is not None:
                 if memory.dtype != np.int16 or memory.ndim != 1 or memory.size < n_pix:
                     raise ValueError(f"'buffer' gave an array of {memory.dtype} {memory.shape}; expected int16 of at "
                                      f"least {n_pix} values")

@@ -445,6 +445,7 @@ class TableWriter(PartialFileWriter):
         self._dtypes: dict[str, np.dtype] = {}
         self._datasets: dict[str, h5py.Dataset] = {}
         self._copied: list[str] = []  # columns copied whole from another file (copy_column), after the appended ones
+        self._copied_rows: dict[str, int] = {}  # and their lengths
         self._n = 0
         # datasets are created with the expected length and trimmed by close(): no resize per append
         self._allocated = max(0, int(expected_rows or 0))
@@ -571,6 +572,7 @@ class TableWriter(PartialFileWriter):
         if description is not None:
             events[name].attrs["unit"], events[name].attrs["description"] = description
         self._copied.append(name)
+        self._copied_rows[name] = int(source.shape[0])
         self.check_writes()
 
     def set_provenance(self, **values) -> None:
@@ -583,13 +585,12 @@ class TableWriter(PartialFileWriter):
         if self._contiguous and self._n != self._allocated:
             raise ValueError(f"'{self.path}': {self._n} rows appended, not the {self._allocated} announced "
                              "(expected_rows with exact_rows=True)")
-        for ds in self._datasets.values():
-            if ds.shape[0] != self._n:
+        if self._allocated != self._n:  # chunked columns allocated ahead of the rows
+            for ds in self._datasets.values():
                 ds.resize((self._n,))
-        events = self._file["events"]
         for name in self._copied:
-            if events[name].shape[0] != self._n:
-                raise ValueError(f"'{self.path}': copied column '{name}' has {events[name].shape[0]} rows, the table "
+            if self._copied_rows[name] != self._n:
+                raise ValueError(f"'{self.path}': copied column '{name}' has {self._copied_rows[name]} rows, the table "
                                  f"{self._n}")
         self._write_column_order()  # once, with the copied columns (the table is complete only when closed)
         self._file["events"].attrs["n_rows"] = self._n

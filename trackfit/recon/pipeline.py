@@ -13,6 +13,7 @@ import collections
 import os
 import queue
 import threading
+import types
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -514,7 +515,7 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             taken.append(take_buffer(n_pixels))
             return taken[-1]
 
-        batch = reader.read_batch(*item, with_truth=False, buffer=buffer)
+        batch = reader.read_batch(*item, with_truth=False, buffer=buffer, mapped=True)
         fingerprint.update(batch)
         if item == bounds[-1]:
             read_done.set()
@@ -549,7 +550,7 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             if failure:
                 continue
             try:
-                writer.append(item)
+                writer.append(_columns(*item))
             except BaseException as err:  # noqa: BLE001 - re-raised in the caller
                 failure.append(err)
         while (lookup or copies) and not failure:
@@ -566,7 +567,11 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             out_f, out_i = result()
             if buffer is not None:
                 free.put(buffer)
-            work.put(_columns(batch, out_f, out_i, estimates))
+            # the writer thread assembles the columns: the kernel goes on with the next batch meanwhile; it gets
+            # what the columns need of the batch, not the signal (a reused buffer, or a view of the file)
+            keys = types.SimpleNamespace(index=batch.index, trigger_id=batch.trigger_id, time_s=batch.time_s,
+                                         truth=batch.truth)
+            work.put((keys, out_f, out_i, estimates))
             update(len(batch))
 
         ahead = 1 if pool is not None else 0
