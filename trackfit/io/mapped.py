@@ -1,12 +1,16 @@
-"""Ranges of an uncompressed 1-D dataset as arrays that view the file's bytes through a memory map, without a copy.
+"""Ranges of an uncompressed 1-D dataset read straight from the file's bytes: viewed through a memory map without a
+copy, or copied with one system call per run of consecutive bytes.
 
 Reading a range of a dataset through HDF5 copies its bytes from the operating system's file cache into memory of
 the process. For the signal of a raw event file (tens of MB per 10^5 events, read once and checked once) that copy
 is a sizeable part of the work around the reconstruction kernel. When the dataset is stored uncompressed, as little
 endian int16, either contiguous or in chunks laid out one after the other in the file, a range of it is a range of
 bytes of the file: :class:`MappedRanges` maps those bytes (copy-on-write: writing into the array never changes the
-file) and returns an array over them. Anything else - filters, another byte order, chunks out of order or not yet
-written, bytes beyond the end of the file - gives None, and the caller reads through HDF5 as usual.
+file) and returns an array over them. When the chunks of a range do not follow each other in the file (a file
+written by many appends interleaves the chunks of its datasets), :meth:`MappedRanges.read_into` copies the range
+run by run into the caller's array: one copy, where HDF5 makes two (through its chunk cache). Anything else -
+filters, another byte order, chunks not yet written, bytes beyond the end of the file - gives None or False, and
+the caller reads through HDF5 as usual.
 
 Each range has a mapping of its own, released when the last array over it is freed, so the memory a stream of
 batches keeps mapped is bounded by the batches alive, not by the file size.
@@ -70,23 +74,25 @@ class MappedRanges:
             pass  # whatever HDF5 cannot tell: read through it instead
         return False
 
-    def _byte_offset(self, start: int, stop: int) -> int | None:
-        """File offset of element ``start`` when elements ``start <= i < stop`` are one run of bytes of the file."""
+    def _runs(self, start: int, stop: int) -> list[tuple[int, int, int]] | None:
+        """Elements ``start <= i < stop`` as runs of consecutive bytes of the file: list of (file offset, first
+        element, number of elements), in element order; None when some chunk is not stored plainly."""
         size = self._dtype.itemsize
         if self._contiguous_offset is not None:
-            return self._contiguous_offset + start * size
+            return [(self._contiguous_offset + start * size, start, stop - start)]
         chunk = self._chunk
-        first, last = start // chunk, (stop - 1) // chunk
-        base = None
-        for k in range(first, last + 1):
+        runs: list[list[int]] = []
+        for k in range(start // chunk, (stop - 1) // chunk + 1):
             info = self._dataset.id.get_chunk_info_by_coord((k * chunk,))
             if info.byte_offset is None or info.filter_mask != 0 or info.size != chunk * size:
-                return None
-            if base is None:
-                base = info.byte_offset
-            elif info.byte_offset != base + (k - first) * chunk * size:
-                return None  # chunks out of order in the file
-        return base + (start - first * chunk) * size
+                return None  # not written yet, or stored through a filter
+            a, b = max(start, k * chunk), min(stop, (k + 1) * chunk)
+            offset = info.byte_offset + (a - k * chunk) * size
+            if runs and runs[-1][0] + runs[-1][2] * size == offset:
+                runs[-1][2] += b - a  # the next chunk follows in the file
+            else:
+                runs.append([offset, a, b - a])
+        return [(offset, a, n) for offset, a, n in runs]
 
     def view(self, start: int, stop: int) -> np.ndarray | None:
         """Elements ``start <= i < stop`` as an array over a private memory map of the file (writable: writes
@@ -94,9 +100,10 @@ class MappedRanges:
         if not self.usable or stop <= start or self._fd is None:
             return None
         try:
-            offset = self._byte_offset(int(start), int(stop))
-            if offset is None:
-                return None
+            runs = self._runs(int(start), int(stop))
+            if runs is None or len(runs) != 1:
+                return None  # chunks out of order in the file: copy them (read_into)
+            offset = runs[0][0]
             n_bytes = (stop - start) * self._dtype.itemsize
             if offset < 0 or offset + n_bytes > os.fstat(self._fd).st_size:
                 return None  # a damaged file: HDF5 reports it
@@ -106,6 +113,32 @@ class MappedRanges:
             return None
         # the array keeps the mapping alive; it is unmapped when the last array over it is freed
         return np.frombuffer(mapping, dtype=self._dtype, count=stop - start, offset=offset - aligned)
+
+    def read_into(self, start: int, stop: int, out: np.ndarray) -> bool:
+        """Copy elements ``start <= i < stop`` into ``out`` (contiguous, of the dtype, ``stop - start`` long) with
+        one system call per run of consecutive bytes of the file: one copy, where HDF5 copies a chunked dataset
+        through its chunk cache. False (``out`` then holds nothing useful) when they cannot be read this way, or
+        the file ends early: read them through HDF5, which reports what is wrong."""
+        if not self.usable or self._fd is None or not hasattr(os, "preadv"):
+            return False
+        if stop <= start:
+            return True
+        size = self._dtype.itemsize
+        try:
+            runs = self._runs(int(start), int(stop))
+            if runs is None:
+                return False
+            whole = memoryview(out).cast("B")
+            for offset, a, n in runs:
+                target = whole[(a - start) * size:(a - start + n) * size]
+                while len(target):
+                    done = os.preadv(self._fd, [target], offset)
+                    if done <= 0:
+                        return False  # the file ends before the data
+                    target, offset = target[done:], offset + done
+        except (OSError, RuntimeError, ValueError, KeyError, TypeError, OverflowError):
+            return False
+        return True
 
     def close(self) -> None:
         """Close the file descriptor (arrays already given stay valid: each mapping holds the file open)."""

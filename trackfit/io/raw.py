@@ -384,8 +384,9 @@ class RawEventReader:
         read into new memory.
 
         ``mapped``: when the signal is stored uncompressed, the batch's signal views the file's bytes through a
-        private memory map instead of a copy (:mod:`trackfit.io.mapped`; ``buffer`` is then not called). The view
-        is writable, its writes never reach the file, and it stays valid as long as the batch lives.
+        private memory map instead of a copy (:mod:`trackfit.io.mapped`; ``buffer`` is then not called), or, when
+        its chunks do not follow each other in the file, is copied run by run into the buffer. The view is
+        writable, its writes never reach the file, and it stays valid as long as the batch lives.
         """
         if not 0 <= a <= b <= self._n:
             raise IndexError(f"event range {a}:{b} outside 0:{self._n} of '{self.path}'")
@@ -423,18 +424,22 @@ class RawEventReader:
             n_pix = int(start[-1]) - s0
             signal = self._mapped_range(s0, s0 + n_pix) if mapped and n_pix > 0 else None
             memory = buffer(n_pix) if buffer is not None and n_pix > 0 and signal is None else None
-            if signal is not None:
-                pass
-            elif memory is not None:
-                if memory.dtype != np.int16 or memory.ndim != 1 or memory.size < n_pix:
-                    raise ValueError(f"'buffer' gave an array of {memory.dtype} {memory.shape}; expected int16 of at "
-                                     f"least {n_pix} values")
+            if memory is not None and (not isinstance(memory, np.ndarray) or memory.dtype != np.int16
+                                       or memory.ndim != 1 or memory.size < n_pix
+                                       or not memory.flags.c_contiguous or not memory.flags.writeable):
+                raise ValueError(f"'buffer' gave {_describe_array(memory)}; expected a writable, contiguous int16 "
+                                 f"array of at least {n_pix} values")
+            if signal is None and mapped and n_pix > 0:  # not one run of bytes: copy the runs (one copy, not two)
+                memory = np.empty(n_pix, np.int16) if memory is None else memory
+                if self._mapped.read_into(s0, s0 + n_pix, memory[:n_pix]):
+                    signal = memory[:n_pix]
+            if signal is None and memory is not None:
                 signal = memory[:n_pix]
                 with self._checked.guard(self._signal.name):
                     space = self._signal.id.get_space()
                     space.select_hyperslab((s0,), (n_pix,))
                     self._signal.id.read(h5py.h5s.create_simple((n_pix,)), space, signal)
-            else:
+            elif signal is None:
                 signal = self._checked.read(self._signal, np.s_[s0:int(start[-1])])
             new_start = start - s0
         else:
@@ -527,6 +532,13 @@ class RawEventReader:
         finally:
             self.strict = strict
         return list(self.bad_events)
+
+
+def _describe_array(value) -> str:
+    if isinstance(value, np.ndarray):
+        layout = "" if value.flags.c_contiguous else "non-contiguous "
+        return f"a {'' if value.flags.writeable else 'read-only '}{layout}array of {value.dtype} {value.shape}"
+    return f"a {type(value).__name__}"
 
 
 def _prefetched(read, items, depth: int = 2):
