@@ -85,28 +85,24 @@ def damaged_global_heaps(path) -> list[tuple[int, str]]:
         for start, stop in ranges:
             if mapped is None:
                 f.seek(start)
-                _scan(f.read(stop - start), start, found)
+                block = f.read(stop - start)
+                _scan(block, start, found, lambda offset, block=block: block.find(_SIGNATURE, offset))
             else:
                 with memoryview(mapped) as whole, whole[start:stop] as block:
-                    _scan(block, start, found, lambda offset, s=start, e=stop: mapped.find(_SIGNATURE, s + offset, e))
+                    _scan(block, start, found, lambda offset, start=start, stop=stop:
+                          max(mapped.find(_SIGNATURE, start + offset, stop) - start, -1))
         if mapped is not None:
             mapped.close()
     return found
 
 
-def _scan(block, start: int, found: list, find=None) -> None:
-    """Append ``(start + offset, problem)`` for every damaged collection whose signature is in ``block`` (bytes, or
-    a memoryview with ``find(offset)`` giving the next signature at or after ``offset`` relative to the file)."""
-    if find is None:
-        def find(offset):
-            return block.find(_SIGNATURE, offset)
-        base = 0
-    else:
-        base = start
-    at = find(0)
-    while at >= 0:
-        offset = at - base
+def _scan(block, start: int, found: list, find) -> None:
+    """Append ``(start + offset, problem)`` for every damaged collection whose signature is in ``block`` (the bytes
+    of the file from ``start``, or a view of them); ``find(offset)`` gives the next signature in ``block`` at or
+    after ``offset``, or -1."""
+    offset = find(0)
+    while offset >= 0:
         problem = _problem(block, offset, start)
         if problem is not None:
             found.append((start + offset, problem))
-        at = find(offset + 1)
+        offset = find(offset + 1)

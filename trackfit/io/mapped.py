@@ -102,7 +102,7 @@ class MappedRanges:
         try:
             runs = self._runs(int(start), int(stop))
             if runs is None or len(runs) != 1:
-                return None  # chunks out of order in the file: copy them (read_into)
+                return None  # not one run of bytes (or not stored plainly): see read_into
             offset = runs[0][0]
             n_bytes = (stop - start) * self._dtype.itemsize
             if offset < 0 or offset + n_bytes > os.fstat(self._fd).st_size:

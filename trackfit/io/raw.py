@@ -345,7 +345,7 @@ class RawEventReader:
     def _mapped_range(self, start: int, stop: int) -> np.ndarray | None:
         """Signal values ``start:stop`` viewed through a memory map, or None when they must be read (see
         :class:`~trackfit.io.mapped.MappedRanges`)."""
-        if getattr(self, "_mapped", None) is None:
+        if self._mapped is None:
             with self._checked.guard(self._signal.name):
                 self._mapped = MappedRanges(self.path, self._signal, np.int16)
         return self._mapped.view(start, stop)
