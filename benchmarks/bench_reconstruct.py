@@ -14,7 +14,8 @@ times the other estimates against it):
    uncompressed, about 300 ROI pixels per event):
    a. the breakdown of the work around the kernel, each stage alone on one core: read (h5py, the signal viewed
       through memory maps of the file, + validation of the events; the pages are touched by the next stages),
-      checksum (the CRC-32 content fingerprint), kernel, columns (assembly of the result columns), write
+      checksum (the CRC-32 content fingerprint, by zlib-ng when ``trackfit[fast]`` is installed, else by zlib;
+      the header names which), kernel, columns (assembly of the result columns), write
       (the table's columns, with its creation and closing) and truth copy (the simulation truth, copied by HDF5),
       in ms per 1e5 events and as a share of the kernel;
    b. ``reconstruct_file`` against the kernel alone on the same events held in memory, with 1 and all kernel
@@ -46,7 +47,7 @@ from pathlib import Path
 import numpy as np
 
 from trackfit import EventBatch, RawEventWriter, ReconConfig, open_raw, reconstruct_file
-from trackfit.io.fingerprint import RawFingerprint
+from trackfit.io.fingerprint import CRC32_BACKEND, RawFingerprint
 from trackfit.io.table import TableWriter
 from trackfit.recon._reference import reconstruct_batch_reference
 from trackfit.recon._synthetic import toy_tracks
@@ -287,7 +288,7 @@ def main(argv=None):
     # adaptive estimate and the skeleton estimate add to it
     config = ReconConfig(emission_estimator="two-stage")
     threads_all = os.cpu_count() or 1
-    figures = {}
+    figures: dict = {"crc32_backend": CRC32_BACKEND}
     with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
         tmp = Path(tmp)
         keep = Path(args.workdir) if args.workdir else tmp
@@ -295,7 +296,7 @@ def main(argv=None):
         raw = make_file(tmp / "bench.h5", args.events)
         print(f"made {args.events} toy events ({ROI_SHAPE[0]} x {ROI_SHAPE[1]} pixel ROIs) in "
               f"{time.perf_counter() - t:.1f} s; file {raw.stat().st_size / 1e6:.0f} MB; "
-              f"{threads_all} CPUs; load average {os.getloadavg()[0]:.2f}")
+              f"{threads_all} CPUs; load average {os.getloadavg()[0]:.2f}; CRC-32 by {CRC32_BACKEND}")
         sims = {}
         for energy in args.sim_energies:
             t = time.perf_counter()

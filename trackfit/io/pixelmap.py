@@ -12,7 +12,6 @@ Every array is chip-sized and indexed ``[row, column]`` (``HexGrid.shape``).
 from __future__ import annotations
 
 import enum
-import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -22,6 +21,7 @@ import numpy as np
 from ..hexgrid import HexGrid
 from ._partial import PartialFileWriter
 from .errors import FileFormatError
+from .fingerprint import crc32
 from .kinds import open_kind
 from .structure import CheckedFile, grid_from_attributes
 
@@ -167,7 +167,7 @@ class PixelMap:
         """CRC-32 of the arrays (little-endian, in :data:`MAP_ARRAYS` order): ``"crc32:<8 hex digits>"``."""
         crc = 0
         for name, dtype in MAP_ARRAYS.items():
-            crc = zlib.crc32(np.ascontiguousarray(getattr(self, name), dtype=dtype.newbyteorder("<")), crc)
+            crc = crc32(np.ascontiguousarray(getattr(self, name), dtype=dtype.newbyteorder("<")), crc)
         return f"crc32:{crc:08x}"
 
     # ------------------------------------------------------------------ derived
