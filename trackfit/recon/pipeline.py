@@ -491,13 +491,14 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
     # signal buffers reused from batch to batch (as many as batches are in flight: read, waiting, in the kernel)
     free: queue.Queue = queue.Queue()
 
-    def take_buffer(n_pixels):
+    def take_buffer(n_pixels, n_room):
         try:
             buffer = free.get_nowait()
         except queue.Empty:
             buffer = None
         if buffer is None or buffer.size < n_pixels:
-            buffer = np.empty(max(n_pixels, 1), np.int16)
+            # room for the larger batches that follow (a new buffer costs a page fault per page of memory)
+            buffer = np.empty(max(n_pixels, n_room, 1), np.int16)
         return buffer
 
     bounds = batch_bounds(start, stop, batch_size)
@@ -509,9 +510,13 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
 
     def read(item):
         taken = []
+        a, b = item
 
         def buffer(n_pixels):
-            taken.append(take_buffer(n_pixels))
+            # a new buffer is made large enough for a full batch of such events (the first batches are smaller)
+            # and a tenth more (batches differ in their numbers of pixels), so that it can serve every later batch
+            n_events = min(batch_size, stop - a)
+            taken.append(take_buffer(n_pixels, int(n_pixels * n_events / max(b - a, 1) * 1.1)))
             return taken[-1]
 
         batch = reader.read_batch(*item, with_truth=False, buffer=buffer, mapped=True)
