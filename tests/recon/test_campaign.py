@@ -88,6 +88,25 @@ def test_resume_arguments(campaign, tmp_path, capsys):
     assert "or --resume to keep it" in capsys.readouterr().err
 
 
+@pytest.mark.parametrize("workers", [1, 2])
+def test_skip_truth_leaves_the_truth_columns_out_and_counts_as_other_settings(campaign, capsys, workers):
+    raws, out_dir = campaign
+    extra = ["--workers", "2", "--part-events", "200"] if workers > 1 else []  # 2: split files, joined parts
+    assert _run(raws[1:], out_dir, "--skip-truth", *extra) == 0
+    table = read_table(out_dir / "run2_events.h5")
+    assert not [name for name in table if name.startswith("truth_")] and len(table["event_index"]) == 500
+    assert table.provenance["input_n_events"] == 500
+    capsys.readouterr()
+    assert _run(raws[1:], out_dir, "--skip-truth", "--resume", *extra) == 0
+    assert capsys.readouterr().out.count("skipped") >= 2
+    assert _run(raws[1:], out_dir, "--resume", *extra) == 0  # the truth asked for now: redone
+    assert capsys.readouterr().out.count("made with other settings") == 2
+    table = read_table(out_dir / "run2_events.h5")
+    truth = toy_tracks(500, 52, roi_shape=(16, 16)).truth
+    assert sorted(name for name in table if name.startswith("truth_")) == sorted(f"truth_{k}" for k in truth)
+    assert np.array_equal(table["truth_angle_rad"], truth["angle_rad"])
+
+
 def test_compatible_versions():
     # the rule of identity.compatible_version: same major.minor (semantic versioning, common practice)
     assert compatible_version("1.4.2", "1.4.0") and not compatible_version("1.3.9", "1.4.0")

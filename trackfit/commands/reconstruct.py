@@ -89,6 +89,9 @@ def register(subparsers):
                         help=f"events per batch; memory grows with it (default {DEFAULT_BATCH_SIZE})")
     parser.add_argument("--strict", action="store_true",
                         help="stop at the first malformed event instead of flagging it")
+    parser.add_argument("--skip-truth", action="store_true",
+                        help="do not copy the simulation truth of simulated raw files into the tables (the truth_* "
+                        "columns); it stays in the raw file, whose event i is row i of the table (default: copy it)")
     parser.add_argument("--overwrite", action="store_true", help="replace existing output files")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
     parser.set_defaults(func=run)
@@ -262,7 +265,7 @@ def _resume(jobs, totals, config, args, summary):
 
         map_fingerprint = read_pixel_map(config.pixel_map).fingerprint
     for (raw, out), n_events in zip(jobs, totals, strict=True):
-        digest = file_settings_hash(config, raw, with_truth=True, strict=args.strict,
+        digest = file_settings_hash(config, raw, with_truth=not args.skip_truth, strict=args.strict,
                                     pixel_map_fingerprint=map_fingerprint)
         decision = resume_decision(raw, out, settings=digest, n_events=n_events)
         if decision.skip:
@@ -281,7 +284,7 @@ def _run_jobs(raws, overwrite, config, args, bar, report):
     if not raws:
         return
     pairs = [(raw, _output_of(raw, args)) for raw in raws]
-    options = {"strict": args.strict, "overwrite": overwrite}
+    options = {"strict": args.strict, "overwrite": overwrite, "with_truth": not args.skip_truth}
     if args.batch_size is not None:
         options["batch_size"] = args.batch_size
     if args.scheduler:
