@@ -20,7 +20,8 @@ times the other estimates against it):
       in ms per 1e5 events and as a share of the kernel;
    b. ``reconstruct_file`` against the kernel alone on the same events held in memory, with 1 and all kernel
       threads, runs interleaved, best of ``--repeats``. Targets: >= 0.9x the kernel's events/s with 1 thread,
-      >= 0.8x with all threads. Then the fixed cost of a file: ``reconstruct_file`` on a file of its first 100
+      >= 0.8x with all threads. For a simulator file also without the copy of its truth (``--skip-truth``, as
+      for a lab file, which has none). Then the fixed cost of a file: ``reconstruct_file`` on a file of its first 100
       events (opening and checking the input, creating and closing the table).
    With ``--parts``: the same file split into event ranges over a spawn process pool (``reconstruct_in_parts``),
    which pays about 1.5 s to start each worker process.
@@ -163,12 +164,13 @@ def small_file(raw, n=100):
 
 
 def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
-    """Best seconds of the kernel alone and of reconstruct_file (1 and all threads, and on a file of the first 100
-    events: the fixed cost of a file), interleaved."""
+    """Best seconds of the kernel alone and of reconstruct_file (1 and all threads, without the truth copy too when
+    the file has a truth, and on a file of the first 100 events: the fixed cost of a file), interleaved."""
     from concurrent.futures import ThreadPoolExecutor
 
     small = small_file(raw)
     with open_raw(raw) as reader:
+        has_truth = bool(reader.truth_names)
         batch = reader.read_all(with_truth=False)
         prepared = _Prepared(config, reader.grid, config.energy_scale(reader.run_info)[0])
     prepared.run(batch.select(np.arange(min(100, len(batch)))))
@@ -193,6 +195,11 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
                                                   overwrite=True, threads=1))
         timed("file all", lambda: reconstruct_file(raw, out, config, batch_size=batch_size, progress=False,
                                                     overwrite=True, threads=threads_all))
+        if has_truth:  # as a lab file (no truth) or --skip-truth
+            for label, threads in (("1", 1), ("all", threads_all)):
+                timed(f"file {label} skip truth",
+                      lambda threads=threads: reconstruct_file(raw, out, config, batch_size=batch_size, progress=False,
+                                                               overwrite=True, threads=threads, with_truth=False))
         timed("100 events", lambda: reconstruct_file(small, out, config, batch_size=batch_size, progress=False,
                                                       overwrite=True, threads=1))
     if parts:
@@ -226,6 +233,12 @@ def report_file(label, raw, config, args, threads_all):
     one, every = best["kernel 1"] / best["file 1"], best["kernel all"] / best["file all"]
     print(f"      ratio file / kernel              {one:>12.2f}  {every:>12.2f}   (targets >= 0.90 and >= 0.80: "
           f"{'met' if one >= 0.9 else 'NOT met'}, {'met' if every >= 0.8 else 'NOT met'})")
+    if "file 1 skip truth" in best:
+        skip_one = best["kernel 1"] / best["file 1 skip truth"]
+        skip_every = best["kernel all"] / best["file all skip truth"]
+        print(f"      without the truth copy (--skip-truth){n / best['file 1 skip truth']:>9,.0f}  "
+              f"{n / best['file all skip truth']:>12,.0f}")
+        print(f"      ratio file / kernel                {skip_one:>10.2f}  {skip_every:>12.2f}")
     print(f"      CPU seconds: file {cpu['file 1']:.3f} / {cpu['file all']:.3f} against kernel {cpu['kernel 1']:.3f} / "
           f"{cpu['kernel all']:.3f}; load average now {os.getloadavg()[0]:.2f}")
     print(f"      fixed cost of a file (reconstruct_file on its first 100 events, 1 thread): "
@@ -234,8 +247,11 @@ def report_file(label, raw, config, args, threads_all):
     if "parts" in best:
         print(f"      reconstruct_in_parts, {threads_all} processes: {n / best['parts']:,.0f} events/s "
               f"({best['kernel all'] / best['parts']:.2f}x the kernel; each process starts in about 1.5 s)")
-    return {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every,
-            "fixed_s": best["100 events"]}
+    figures = {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every,
+               "fixed_s": best["100 events"]}
+    if "file 1 skip truth" in best:
+        figures.update(ratio_1_skip_truth=skip_one, ratio_all_skip_truth=skip_every)
+    return figures
 
 
 # VmHWM (peak resident set of this process image), not getrusage's ru_maxrss: Linux carries ru_maxrss over from
