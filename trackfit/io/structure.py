@@ -188,6 +188,25 @@ def find_external_data(f: h5py.File) -> list[tuple[str, str]]:
     return found
 
 
+def _by_hard_link(group: h5py.Group, leaf: str, readonly: bool):
+    """The dataset or group a hard link ``leaf`` of ``group`` names, through the low-level API (a fifth of the cost
+    of h5py's lookups, and a reader opens tens of datasets); None for any other link, a missing one, another kind of
+    object or any error (the general lookup then decides and words the error). ``readonly``: the file is open for
+    reading only (h5py then caches a dataset's shape and selection machinery, as for ``group[name]``)."""
+    try:
+        name = leaf.encode()
+        if group.id.links.get_info(name).type != h5py.h5l.TYPE_HARD:
+            return None
+        oid = h5py.h5o.open(group.id, name)
+    except Exception:  # noqa: BLE001 - the general lookup reports it
+        return None
+    if isinstance(oid, h5py.h5d.DatasetID):
+        return h5py.Dataset(oid, readonly=readonly)
+    if isinstance(oid, h5py.h5g.GroupID):
+        return h5py.Group(oid)
+    return None
+
+
 def _text(value) -> str:
     return value.decode(errors="replace") if isinstance(value, bytes) else str(value)
 
@@ -214,6 +233,7 @@ class CheckedFile:
         self.error = error
         self.allow_external = external_allowed(allow_external)
         self._groups: dict[str, h5py.Group] = {}  # groups already checked, by absolute name (a read-only file)
+        self._readonly = f.mode == "r"
 
     def fail(self, message, where="/", **extra):
         raise self.error(self.path, message, dataset=where, **extra)
@@ -254,6 +274,23 @@ class CheckedFile:
                     return None
             else:
                 group = self.file
+            obj = _by_hard_link(group, leaf, self._readonly)
+        if obj is None:
+            obj = self._through_link(group, leaf, where, what, required)
+            if obj is None:
+                return None
+        if not isinstance(obj, kind):
+            found = "a dataset" if isinstance(obj, h5py.Dataset) else "a group" if isinstance(obj, h5py.Group) \
+                else f"a {type(obj).__name__}"
+            self.fail(f"expected a {what}, found {found}", where)
+        if kind is h5py.Group:
+            self._groups[where] = obj
+        return obj
+
+    def _through_link(self, group, leaf: str, where: str, what: str, required: bool):
+        """The object ``leaf`` of ``group`` through h5py's lookups, which tell every kind of link apart; None when
+        absent and not required."""
+        with self.guard(where):
             link = group.get(leaf, getlink=True)
             if link is None:
                 if required:
@@ -266,14 +303,7 @@ class CheckedFile:
                 target = group.get(leaf)
                 if target is None:
                     self.fail(f"expected a {what}, found a soft link to '{link.path}', which does not exist", where)
-            obj = group[leaf]
-        if not isinstance(obj, kind):
-            found = "a dataset" if isinstance(obj, h5py.Dataset) else "a group" if isinstance(obj, h5py.Group) \
-                else f"a {type(obj).__name__}"
-            self.fail(f"expected a {what}, found {found}", where)
-        if kind is h5py.Group:
-            self._groups[where] = obj
-        return obj
+            return group[leaf]
 
     def group(self, name: str, *, required: bool = True) -> h5py.Group | None:
         return self.get(name, h5py.Group, required=required)
