@@ -189,8 +189,8 @@ def find_external_data(f: h5py.File) -> list[tuple[str, str]]:
 
 
 def _by_hard_link(group: h5py.Group, leaf: str, readonly: bool):
-    """The dataset or group a hard link ``leaf`` of ``group`` names, through the low-level API (a fifth of the cost
-    of h5py's lookups, and a reader opens tens of datasets); None for any other link, a missing one, another kind of
+    """The dataset or group a hard link ``leaf`` of ``group`` names, through the low-level API (less than half the
+    cost of h5py's lookups; a reader opens tens of datasets); None for any other link, a missing one, another kind of
     object or any error (the general lookup then decides and words the error). ``readonly``: the file is open for
     reading only (h5py then caches a dataset's shape and selection machinery, as for ``group[name]``)."""
     try:
