@@ -335,7 +335,7 @@ def reconstruct_file(raw_path, out_path, config=None, batch_size: int = DEFAULT_
         Event-table file to create (``docs/table-format.md``).
     config : ReconConfig, dict or path of a TOML file, optional
     batch_size : int
-        Events per batch; memory grows with it (about six batches of raw signal are alive at once).
+        Events per batch; memory grows with it (about four batches of raw signal are alive at once).
     progress : bool or callable
         Show a progress bar (tqdm), or call ``progress(n_events_done_in_this_step)`` after each batch.
     threads : int, optional
@@ -460,8 +460,8 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
                  threads: int, update=None, truth=None) -> _Fingerprint:
     """Reconstruct events ``start <= i < stop`` of an open raw file and append their rows to ``writer``.
 
-    A reader thread reads (and decompresses) the next batches; the kernel runs on the current batch in ``threads``
-    threads; a writer thread feeds the fingerprint and appends the previous results in batch order. About six
+    A reader thread reads (and decompresses) the next batches and feeds the fingerprint; the kernel runs on the
+    current batch in ``threads`` threads; a writer thread appends the previous results in batch order. About four
     batches of raw signal are alive at once, whatever the range.
 
     Parameters
@@ -520,6 +520,9 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             return taken[-1]
 
         batch = reader.read_batch(*item, with_truth=False, buffer=buffer, mapped=True)
+        # the checksum here, in batch order: it touches the signal first, so the page faults of a mapped signal fall
+        # on this thread, not on the kernel's (and with zlib-ng it is cheap beside the kernel)
+        fingerprint.update(batch)
         if item == bounds[-1]:
             read_done.set()
         return batch, (taken[0] if taken else None)
@@ -553,12 +556,7 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
             if failure:
                 continue
             try:
-                # the checksum of the batch the kernel has just read, while its signal may still be in the processor's
-                # cache (taken when reading, it competed with the kernel for memory and slowed it by up to 15 %)
-                batch, buffer, out_f, out_i, estimates = item
-                fingerprint.update(batch)
-                if buffer is not None:
-                    free.put(buffer)
+                batch, out_f, out_i, estimates = item
                 writer.append(_columns(batch, out_f, out_i, estimates))
             except BaseException as err:  # noqa: BLE001 - re-raised in the caller
                 failure.append(err)
@@ -574,8 +572,10 @@ def stream_range(reader, start: int, stop: int, prepared: _Prepared, writer: Tab
         def finish_oldest():
             batch, buffer, result, estimates = in_kernel.popleft()
             out_f, out_i = result()
-            # the writer thread checksums the batch and assembles its columns while the kernel goes on with the next
-            work.put((batch, buffer, out_f, out_i, estimates))
+            if buffer is not None:  # the kernel is done with the signal (the columns need none of it): reuse it
+                free.put(buffer)
+            # the writer thread assembles the batch's columns and appends them while the kernel goes on with the next
+            work.put((batch, out_f, out_i, estimates))
             update(len(batch))
 
         ahead = 1 if pool is not None else 0
