@@ -19,10 +19,11 @@ times the other estimates against it):
       (the table's columns, with its creation and closing) and truth copy (the simulation truth, copied by HDF5),
       in ms per 1e5 events and as a share of the kernel;
    b. ``reconstruct_file`` against the kernel alone on the same events held in memory, with 1 and all kernel
-      threads, runs interleaved, best of ``--repeats``. Targets: >= 0.9x the kernel's events/s with 1 thread,
-      >= 0.8x with all threads. For a simulator file also without the copy of its truth (``--skip-truth``, as
-      for a lab file, which has none). Then the fixed cost of a file: ``reconstruct_file`` on a file of its first 100
-      events (opening and checking the input, creating and closing the table).
+      threads, runs interleaved, best of ``--repeats`` (and the median, lowest and highest ratio of the rounds,
+      each round timing the kernel and the files within seconds of each other). Targets: >= 0.9x the kernel's
+      events/s with 1 thread, >= 0.8x with all threads. For a simulator file also without the copy of its truth
+      (``--skip-truth``, as for a lab file, which has none). Then the fixed cost of a file: ``reconstruct_file`` on
+      a file of its first 100 events (opening and checking the input, creating and closing the table).
    With ``--parts``: the same file split into event ranges over a spawn process pool (``reconstruct_in_parts``),
    which pays about 1.5 s to start each worker process.
 3. memory: peak resident memory of ``reconstruct_file`` in a fresh process for files of 1e5 and 1e6 events (the
@@ -176,7 +177,7 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
     prepared.run(batch.select(np.arange(min(100, len(batch)))))
     pool = ThreadPoolExecutor(threads_all)
     out = raw.parent / "bench_out.h5"
-    best, cpu = {}, {}
+    best, cpu, rounds = {}, {}, {}
 
     def timed(key, fn):
         # the previous output is deleted outside the timing: replacing a file of tens of MB frees its pages in the
@@ -185,6 +186,7 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
         c, t = time.process_time(), time.perf_counter()
         fn()
         wall = time.perf_counter() - t
+        rounds.setdefault(key, []).append(wall)
         if wall < best.get(key, np.inf):
             best[key], cpu[key] = wall, time.process_time() - c
 
@@ -211,7 +213,13 @@ def whole_file(raw, config, batch_size, repeats, threads_all, parts=False):
     pool.shutdown()
     out.unlink(missing_ok=True)
     small.unlink(missing_ok=True)
-    return len(batch), best, cpu
+    return len(batch), best, cpu, rounds
+
+
+def round_ratios(rounds, kernel_key, file_key) -> np.ndarray:
+    """kernel / file time of each round (both measured within seconds of each other): steadier than the ratio of
+    the best times when the machine's own speed drifts during the run."""
+    return np.asarray(rounds[kernel_key]) / np.asarray(rounds[file_key])
 
 
 def report_file(label, raw, config, args, threads_all):
@@ -226,13 +234,22 @@ def report_file(label, raw, config, args, threads_all):
         print(f"      {key:<33}{stages[key] / n * 1e8:>10.1f}{stages[key] / kernel:>18.1%}")
     around = sum(v for k, v in stages.items() if k != "kernel")
     print(f"      {'all but the kernel':<33}{around / n * 1e8:>10.1f}{around / kernel:>18.1%}")
-    n, best, cpu = whole_file(raw, config, args.batch_size, args.repeats, threads_all, parts=args.parts)
+    n, best, cpu, rounds = whole_file(raw, config, args.batch_size, args.repeats, threads_all, parts=args.parts)
     print(f"   b. events/s (best of {args.repeats} interleaved runs)   1 thread      {threads_all} threads")
     print(f"      kernel alone, events in memory   {n / best['kernel 1']:>12,.0f}  {n / best['kernel all']:>12,.0f}")
     print(f"      reconstruct_file                 {n / best['file 1']:>12,.0f}  {n / best['file all']:>12,.0f}")
     one, every = best["kernel 1"] / best["file 1"], best["kernel all"] / best["file all"]
     print(f"      ratio file / kernel              {one:>12.2f}  {every:>12.2f}   (targets >= 0.90 and >= 0.80: "
           f"{'met' if one >= 0.9 else 'NOT met'}, {'met' if every >= 0.8 else 'NOT met'})")
+    spread = {}
+    for label, suffix in (("", ""), (" skip truth", ", --skip-truth")):
+        if f"file 1{label}" not in rounds:
+            continue
+        one_r = round_ratios(rounds, "kernel 1", f"file 1{label}")
+        all_r = round_ratios(rounds, "kernel all", f"file all{label}")
+        spread[label.strip() or "default"] = (one_r.tolist(), all_r.tolist())
+        print(f"      ratio of each round{suffix}: median {np.median(one_r):.2f} ({one_r.min():.2f}-{one_r.max():.2f}) "
+              f"/ {np.median(all_r):.2f} ({all_r.min():.2f}-{all_r.max():.2f})")
     if "file 1 skip truth" in best:
         skip_one = best["kernel 1"] / best["file 1 skip truth"]
         skip_every = best["kernel all"] / best["file all skip truth"]
@@ -248,7 +265,7 @@ def report_file(label, raw, config, args, threads_all):
         print(f"      reconstruct_in_parts, {threads_all} processes: {n / best['parts']:,.0f} events/s "
               f"({best['kernel all'] / best['parts']:.2f}x the kernel; each process starts in about 1.5 s)")
     figures = {"events": n, "stages_s": stages, "best_s": best, "ratio_1": one, "ratio_all": every,
-               "fixed_s": best["100 events"]}
+               "fixed_s": best["100 events"], "round_ratios": spread}
     if "file 1 skip truth" in best:
         figures.update(ratio_1_skip_truth=skip_one, ratio_all_skip_truth=skip_every)
     return figures
